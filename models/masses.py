@@ -76,7 +76,7 @@ def _parse(formula: str) -> dict[str, int]:
         raise InputError(not_formula)
     try:
         parsed = periodictable.formula(body)
-    except (ValueError, KeyError, TypeError) as exc:
+    except Exception as exc:  # the parser raises its own (pyparsing) exception types
         raise InputError(not_formula) from exc
     counts: dict[str, int] = {}
     for element, count in parsed.atoms.items():
