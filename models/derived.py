@@ -1,0 +1,204 @@
+"""Quantities derived from a solved state: buffer capacity, alkalinity, calcite
+saturation, Langelier index and a conductivity estimate. All vectorized per batch."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+import numpy as np
+from numpy.typing import NDArray
+
+from models.activity import DAVIES, IDEAL, log_gamma
+from models.masses import formula_mass_g_mol
+from models.prepare import CARBONATE
+from models.results import Alkalinity
+from models.solver import BalanceProblem, balance, balance_at_ph, species_state
+
+if TYPE_CHECKING:
+    from models.equilibrium import Solved
+    from models.thermo import ThermoDatabase
+
+__all__ = ["Derived", "compute", "buffer_capacity", "alkalinity_eq_kg", "langelier_ph_s"]
+
+#: pH step [-] of the central difference for β with activity corrections. Truncation
+#: error ~ δ²·β''/6β, below 1e-7 relative for δ = 1e-4.
+BETA_STEP_PH = 1e-4
+
+
+@dataclass(frozen=True)
+class Derived:
+    beta_mol_kg: NDArray[np.float64]
+    alkalinity: list[Alkalinity]
+    calcite_si: list[float | None]
+    langelier: list[float | None]
+    conductivity_us_cm: list[float | None]
+    strong_log_gamma: NDArray[np.float64]
+    warnings: list[list[str]]
+
+
+def buffer_capacity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArray[np.float64]:
+    """β = dC_base/dpH [mol/kg per pH].
+
+    Ideal solutions: the analytic sum ln10·([H+] + [OH−] + Σ T·Var(z)) (Van Slyke form;
+    open systems add their gas uptake). With activity corrections: the derivative of the
+    strong-base (Na+ / OH−) titration curve including its effect on ionic strength, by
+    a central difference of the base needed at pH ± δ.
+    """
+    beta = np.empty_like(ph)
+    ideal = p.activity_code == IDEAL
+    if ideal.any():
+        idx = np.nonzero(ideal)[0]
+        sub = p.take(idx)
+        zero = np.zeros(idx.size)
+        lg = np.zeros(sub.charge.shape)
+        _, df, *_ = balance(sub, ph[idx], lg, zero, zero)
+        beta[idx] = -df
+    if (~ideal).any():
+        idx = np.nonzero(~ideal)[0]
+        sub = p.take(idx)
+        up, *_ = balance_at_ph(sub, ph[idx] + BETA_STEP_PH, 1.0, ionic_guess=ionic[idx])
+        down, *_ = balance_at_ph(sub, ph[idx] - BETA_STEP_PH, 1.0, ionic_guess=ionic[idx])
+        beta[idx] = (up - down) / (2 * BETA_STEP_PH)
+    return beta
+
+
+def _closed(p: BalanceProblem, m: NDArray) -> BalanceProblem:
+    fields = {k: getattr(p, k) for k in p.__dataclass_fields__}
+    fields["total"] = m.sum(axis=-1)
+    fields["is_open"] = np.zeros_like(p.is_open)
+    return BalanceProblem(**fields)
+
+
+def alkalinity_eq_kg(
+    p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, loh: NDArray, endpoint_ph: float
+) -> NDArray[np.float64]:
+    """Strong acid [eq/kg] that takes the sample (closed, as in a titration vessel) from
+    ``ph`` to ``endpoint_ph``, activity coefficients held at the sample's values."""
+    m, _, _ = species_state(p, ph, lg, lh, loh)
+    closed = _closed(p, m)
+    f_s, *_ = balance(closed, ph, lg, lh, loh)
+    f_e, *_ = balance(closed, np.full_like(ph, endpoint_ph), lg, lh, loh)
+    return f_e - f_s
+
+
+def langelier_ph_s(
+    pk2: NDArray, pks: NDArray, ca_mol_l: NDArray, hco3_mol_l: NDArray, ionic: NDArray, a_dh: NDArray
+) -> NDArray[np.float64]:
+    """pHs of Standard Methods 2330 B: pK2 − pKs + p[Ca²⁺] + p[HCO3⁻] + 5·pfm, with pfm the
+    Davies (0.3) monovalent activity term."""
+    sqrt_i = np.sqrt(ionic)
+    pfm = a_dh * (sqrt_i / (1 + sqrt_i) - 0.3 * ionic)
+    return pk2 - pks - np.log10(ca_mol_l) - np.log10(hco3_mol_l) + 5 * pfm
+
+
+def compute(sv: Solved, db: ThermoDatabase) -> Derived:
+    """All derived quantities of a solved batch."""
+    from models.equilibrium import PHENOLPHTHALEIN_ENDPOINT_PH, TOTAL_ENDPOINT_PH
+
+    p, st, asm = sv.problem, sv.state, sv.assembled
+    n = st.ph.shape[0]
+    ok = np.isfinite(st.ph)
+    ph = np.where(ok, st.ph, 7.0)
+    beta = buffer_capacity(p, ph, st.ionic_strength)
+    args = (p, ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
+    total = alkalinity_eq_kg(*args, TOTAL_ENDPOINT_PH)
+    phen = np.where(ph > PHENOLPHTHALEIN_ENDPOINT_PH, alkalinity_eq_kg(*args, PHENOLPHTHALEIN_ENDPOINT_PH), 0.0)
+    rho = asm.density_kg_l
+    eq_caco3 = formula_mass_g_mol("CaCO3") / 2.0
+    warnings: list[list[str]] = [[] for _ in range(n)]
+    alk: list[Alkalinity] = []
+    for j in range(n):
+        t_meq = max(float(total[j]), 0.0) * float(rho[j]) * 1e3
+        p_meq = max(float(phen[j]), 0.0) * float(rho[j]) * 1e3
+        if total[j] < 0:
+            warnings[j].append(
+                f"pH is below the {TOTAL_ENDPOINT_PH} end point: total alkalinity is 0 and the "
+                f"stream carries {-total[j] * rho[j] * 1e3:.4g} meq/L of mineral acidity"
+            )
+        alk.append(
+            Alkalinity(t_meq, t_meq * eq_caco3, TOTAL_ENDPOINT_PH, p_meq, p_meq * eq_caco3, PHENOLPHTHALEIN_ENDPOINT_PH)
+        )
+    names = asm.strong_names
+    z = np.array([db.strong_ions[s].charge for s in names], dtype=float)
+    size = np.array([db.strong_ions[s].ion_size_angstrom for s in names], dtype=float)
+    strong_lg = log_gamma(
+        np.broadcast_to(z, (n, z.size)), np.broadcast_to(size, (n, z.size)),
+        st.ionic_strength, p.a_dh, p.b_dh, p.activity_code,
+    )
+    si, lsi = _calcite(sv, db, strong_lg)
+    return Derived(beta, alk, si, lsi, _conductivity(sv, db), strong_lg, warnings)
+
+
+def _carbonate_slots(sv: Solved) -> NDArray[np.int_]:
+    return np.array(
+        [next((k for k, s in enumerate(slots) if s.name == CARBONATE), -1) for slots in sv.assembled.slots]
+    )
+
+
+def _calcite(sv: Solved, db: ThermoDatabase, strong_lg: NDArray) -> tuple[list, list]:
+    asm, p, st = sv.assembled, sv.problem, sv.state
+    n = st.ph.shape[0]
+    none: list[float | None] = [None] * n
+    if "Ca2+" not in asm.strong_names:
+        return none, list(none)
+    ca_col = asm.strong_names.index("Ca2+")
+    ca = asm.strong_molal[:, ca_col]
+    slot = _carbonate_slots(sv)
+    has = (ca > 0) & (slot >= 0)
+    if not has.any():
+        return none, list(none)
+    idx = np.nonzero(has)[0]
+    sub = p.take(idx)
+    m, _, _ = species_state(sub, st.ph[idx], st.log_gamma_species[idx], st.log_gamma_h[idx], st.log_gamma_oh[idx])
+    k = slot[idx]
+    rows = np.arange(idx.size)
+    m_hco3, m_co3 = m[rows, k, 1], m[rows, k, 2]
+    lg_co3 = st.log_gamma_species[idx][rows, k, 2]
+    t = asm.temperature_c[idx]
+    pks = np.asarray(db.pksp_calcite(t), dtype=float)
+    with np.errstate(divide="ignore"):
+        si_v = np.log10(ca[idx]) + strong_lg[idx, ca_col] + np.log10(m_co3) + lg_co3 + pks
+        pk2 = sub.cum_pk[rows, k, 2] - sub.cum_pk[rows, k, 1]
+        rho = asm.density_kg_l[idx]
+        phs = langelier_ph_s(pk2, pks, ca[idx] * rho, m_hco3 * rho, st.ionic_strength[idx], sub.a_dh)
+    lsi_v = st.ph[idx] - phs
+    si, lsi = list(none), list(none)
+    for r, j in enumerate(idx):
+        si[j] = float(si_v[r]) if np.isfinite(si_v[r]) else None
+        lsi[j] = float(lsi_v[r]) if np.isfinite(lsi_v[r]) else None
+    return si, lsi
+
+
+def _conductivity(sv: Solved, db: ThermoDatabase) -> list[float | None]:
+    """κ(25 °C) estimate [µS/cm] = 1000 Σ λ_i |z_i| c_i with an Onsager-type correction
+    λ_i = λ°_i − (B2/2·|z_i| + B1·|z_i|·λ°_i)·√I/(1 + √I) (coefficients of the Onsager
+    limiting law for water at 25 °C, in the data file). Ions without a λ° are skipped."""
+    b1, b2 = (0.2289, 60.20)  # TEMP until data file entry
+    asm, p, st = sv.assembled, sv.problem, sv.state
+    n = st.ph.shape[0]
+    sqrt_i = np.sqrt(np.maximum(st.ionic_strength, 0.0))
+    corr = sqrt_i / (1.0 + sqrt_i)
+    rho = asm.density_kg_l
+    m, m_h, m_oh = species_state(p, st.ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
+
+    def term(lam0: float, z: float, c_mol_l: NDArray) -> NDArray:
+        az = abs(z)
+        lam = np.maximum(lam0 - (0.5 * b2 * az + b1 * az * lam0) * corr, 0.0)
+        return lam * az * c_mol_l
+
+    kappa = term(db.limiting_conductivity("H+") or 0.0, 1.0, m_h * rho) + term(
+        db.limiting_conductivity("OH-") or 0.0, 1.0, m_oh * rho
+    )
+    for k, name in enumerate(asm.strong_names):
+        lam0 = db.limiting_conductivity(name)
+        if lam0:
+            kappa = kappa + term(lam0, db.strong_ions[name].charge, asm.strong_molal[:, k] * rho)
+    for j in range(n):
+        for k, sd in enumerate(asm.slots[j]):
+            for q, sp in enumerate(sd.species):
+                lam0 = db.limiting_conductivity(sp)
+                if lam0 and sd.charges[q]:
+                    lam = max(lam0 - (0.5 * b2 * abs(sd.charges[q]) + b1 * abs(sd.charges[q]) * lam0) * corr[j], 0.0)
+                    kappa[j] += lam * abs(sd.charges[q]) * m[j, k, q] * rho[j]
+    return [float(v) * 1e3 for v in kappa]

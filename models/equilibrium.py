@@ -1,0 +1,289 @@
+"""Equilibrium of streams: the public entry points of the core.
+
+``solve_many`` takes a batch of StreamSpec and solves all of them in one vectorized
+pass (parse → assemble → calibrate where asked → charge balance → derived quantities);
+a stream that fails carries a StreamFailure in its place. ``solve`` is the one-stream
+form that raises instead.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from models import derived
+from models.activity import VALIDITY_LIMIT_MOL_KG
+from models.calibration import close_at_ph
+from models.errors import InputError, SolveError
+from models.prepare import CARBONATE, Assembled, ParsedStream, assemble, parse_stream
+from models.results import (
+    Calibration,
+    EquilibriumResult,
+    SpeciesAmount,
+    StreamFailure,
+    SystemSpeciation,
+)
+from models.solver import (
+    OK,
+    PH_MAX,
+    PH_MIN,
+    STATUS_MESSAGES,
+    BalanceProblem,
+    BalanceState,
+    balance,
+    gammas,
+    solve_balance,
+    species_state,
+)
+from models.stream import StreamSpec
+from models.thermo import ThermoDatabase, load_database
+
+__all__ = ["solve", "solve_many", "Solved", "solve_arrays", "failure_message"]
+
+#: Total alkalinity end point [pH], Standard Methods 2320 B (routine, industrial and
+#: complex samples, or where silicates/phosphates are present).
+TOTAL_ENDPOINT_PH = 4.5
+#: Phenolphthalein end point [pH], Standard Methods 2320 B.
+PHENOLPHTHALEIN_ENDPOINT_PH = 8.3
+
+
+@dataclass(frozen=True)
+class Solved:
+    """A solved batch: problem (after calibration), state, and per-stream extras."""
+
+    assembled: Assembled
+    problem: BalanceProblem
+    state: BalanceState
+    added_mol_kg: NDArray[np.float64]
+    carbonate_from_alkalinity: NDArray[np.float64]
+    calibration_error: list[str]
+    balance_on: list[str | None]
+    warnings: list[list[str]]
+
+
+def failure_message(status: int) -> str:
+    """A plant engineer's sentence for a solver status code."""
+    if STATUS_MESSAGES[status] == "ph_below_model_range":
+        return (
+            f"the charge balance has no root above pH {PH_MIN:g}: the stream is more acidic "
+            "than the model covers; check the strong-acid and anion amounts"
+        )
+    if STATUS_MESSAGES[status] == "ph_above_model_range":
+        return (
+            f"the charge balance has no root below pH {PH_MAX:g}: the stream is more alkaline "
+            "than the model covers; check the strong-base and cation amounts"
+        )
+    if STATUS_MESSAGES[status] == "ionic_strength_out_of_range":
+        return "the ionic strength exceeds 3 mol/kg, beyond every activity model offered here"
+    return "the pH and ionic-strength iteration did not converge; no result is returned"
+
+
+def _state_at_fixed_ph(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> BalanceState:
+    lg, lh, loh = gammas(p, ionic)
+    f, _, scale, *_ = balance(p, ph, lg, lh, loh)
+    n = ph.shape[0]
+    return BalanceState(ph, ionic, lg, lh, loh, f, scale, np.ones(n, dtype=int), np.zeros(n, dtype=int))
+
+
+def _merge(full: BalanceState, idx: NDArray, part: BalanceState) -> BalanceState:
+    out = {}
+    for name in full.__dataclass_fields__:
+        arr = getattr(full, name).copy()
+        arr[idx] = getattr(part, name)
+        out[name] = arr
+    return BalanceState(**out)
+
+
+def _replace(p: BalanceProblem, idx: NDArray, part: BalanceProblem) -> BalanceProblem:
+    out = {}
+    for name in p.__dataclass_fields__:
+        arr = getattr(p, name).copy()
+        arr[idx] = getattr(part, name)
+        out[name] = arr
+    return BalanceProblem(**out)
+
+
+def solve_arrays(parsed: list[ParsedStream], db: ThermoDatabase) -> Solved:
+    """Solve parsed streams in one vectorized pass (calibration included)."""
+    asm = assemble(parsed, db)
+    p = asm.problem
+    n = len(parsed)
+    measured = np.array([np.nan if s.measured_ph is None else s.measured_ph for s in parsed])
+    charge_of = {"Na+": 1.0, "Cl-": -1.0}
+    bal = np.array([charge_of.get(s.balance_on or "", 0.0) for s in parsed])
+    alk = np.array([np.nan if s.alkalinity_eq_kg is None else s.alkalinity_eq_kg for s in parsed])
+    carb_slot = np.array(
+        [
+            [x.name for x in s.systems].index(CARBONATE) if s.alkalinity_eq_kg is not None else -1
+            for s in parsed
+        ]
+    )
+    added = np.zeros(n)
+    carb = np.full(n, np.nan)
+    errors = [""] * n
+    fixed = np.nonzero((bal != 0) | (carb_slot >= 0))[0]
+    ionic_fixed = np.zeros(0)
+    if fixed.size:
+        sub, add_f, carb_f, ionic_fixed, conv = close_at_ph(
+            p.take(fixed),
+            measured[fixed],
+            balance_charge=bal[fixed],
+            alkalinity_eq_kg=np.nan_to_num(alk[fixed]),
+            carbonate_slot=carb_slot[fixed],
+            endpoint_ph=TOTAL_ENDPOINT_PH,
+        )
+        p = _replace(p, fixed, sub)
+        added[fixed] = add_f
+        carb[fixed] = np.where(carb_slot[fixed] >= 0, carb_f, np.nan)
+        for j, i in enumerate(fixed):
+            if parsed[i].balance_on is not None:
+                asm.strong_molal[i, asm.strong_names.index(parsed[i].balance_on)] += add_f[j]
+            errors[i] = _calibration_error(parsed[i], add_f[j], carb_f[j], bool(conv[j]))
+    free = np.nonzero(bal == 0)[0]
+    pinned = np.nonzero(bal != 0)[0]
+    state = _state_at_fixed_ph(p, np.where(np.isnan(measured), 7.0, measured), np.zeros(n))
+    if free.size:
+        state = _merge(state, free, solve_balance(p.take(free)))
+    if pinned.size:
+        pos = np.searchsorted(fixed, pinned)
+        state = _merge(state, pinned, _state_at_fixed_ph(p.take(pinned), measured[pinned], ionic_fixed[pos]))
+    return Solved(
+        asm, p, state, added, carb, errors,
+        [s.balance_on for s in parsed], [list(s.warnings) for s in parsed],
+    )
+
+
+def _calibration_error(s: ParsedStream, added: float, carb: float, converged: bool) -> str:
+    if not converged:
+        return "calibration to the measured pH did not converge"
+    if s.alkalinity_eq_kg is not None and not (carb >= 0.0):
+        return (
+            "the measured alkalinity is lower than what the other bases and water already "
+            f"contribute at pH {s.measured_ph:g}: no carbonate total can match it"
+        )
+    if s.balance_on is not None and added < 0.0:
+        other = "Cl-" if s.balance_on == "Na+" else "Na+"
+        return (
+            f"closing the charge balance at pH {s.measured_ph:g} would need a negative amount "
+            f"of {s.balance_on} ({added * s.density_kg_l * 1e3:.4g} mmol/L): the analysis has "
+            f"an excess of {'cations' if s.balance_on == 'Na+' else 'anions'}; balance on {other} instead"
+        )
+    return ""
+
+
+def solve_many(
+    specs: Sequence[StreamSpec], db: ThermoDatabase | None = None
+) -> list[EquilibriumResult | StreamFailure]:
+    """Solve a batch in one vectorized call; order kept, failures in place."""
+    db = db or load_database()
+    out: list[EquilibriumResult | StreamFailure | None] = [None] * len(specs)
+    parsed: list[ParsedStream] = []
+    where: list[int] = []
+    for i, spec in enumerate(specs):
+        try:
+            parsed.append(parse_stream(spec, db))
+            where.append(i)
+        except InputError as exc:
+            out[i] = StreamFailure("input", "invalid_input", exc.message, exc.field)
+    if parsed:
+        solved = solve_arrays(parsed, db)
+        extras = derived.compute(solved, db)
+        for j, i in enumerate(where):
+            out[i] = _result(j, solved, extras, db)
+    return [o for o in out if o is not None]
+
+
+def solve(spec: StreamSpec, db: ThermoDatabase | None = None) -> EquilibriumResult:
+    """Solve one stream; raise InputError or SolveError instead of returning a failure."""
+    res = solve_many([spec], db)[0]
+    if isinstance(res, StreamFailure):
+        if res.kind == "input":
+            raise InputError(res.message, res.field)
+        raise SolveError(res.message, res.reason)
+    return res
+
+
+def _result(j: int, sv: Solved, ex: derived.Derived, db: ThermoDatabase) -> EquilibriumResult | StreamFailure:
+    st = sv.state
+    parsed_warn: list[str] = sv.warnings[j] + list(ex.warnings[j])
+    if sv.calibration_error[j]:
+        field = "/composition" if "alkalinity" in sv.calibration_error[j] else "/balance_on"
+        return StreamFailure("input", "calibration_impossible", sv.calibration_error[j], field)
+    status = int(st.status[j])
+    if status != OK:
+        return StreamFailure("solve", STATUS_MESSAGES[status], failure_message(status))
+    asm = sv.assembled
+    p = sv.problem
+    rho = float(asm.density_kg_l[j])
+    ph = float(st.ph[j])
+    lg = st.log_gamma_species[j]
+    m, m_h, m_oh = species_state(p.take(np.array([j])), st.ph[j : j + 1], lg[None], st.log_gamma_h[j : j + 1], st.log_gamma_oh[j : j + 1])
+    m = m[0]
+    species: list[SpeciesAmount] = [
+        _amount("H+", 1, float(m_h[0]), float(st.log_gamma_h[j]), rho),
+        _amount("OH-", -1, float(m_oh[0]), float(st.log_gamma_oh[j]), rho),
+    ]
+    for k, name in enumerate(asm.strong_names):
+        mk = float(asm.strong_molal[j, k])
+        if mk > 0.0:
+            species.append(_amount(name, db.strong_ions[name].charge, mk, float(ex.strong_log_gamma[j, k]), rho))
+    systems: list[SystemSpeciation] = []
+    for k, sd in enumerate(asm.slots[j]):
+        ns = sd.n_steps + 1
+        tot = float(m[k, :ns].sum())
+        fr = {sp: (float(m[k, q] / tot) if tot > 0 else float(q == 0)) for q, sp in enumerate(sd.species)}
+        systems.append(SystemSpeciation(sd.name, tot * rho, fr, bool(p.is_open[j, k])))
+        for q, sp in enumerate(sd.species):
+            species.append(_amount(sp, sd.charges[q], float(m[k, q]), float(lg[k, q]), rho))
+    ionic = float(st.ionic_strength[j])
+    model = _model_name(int(p.activity_code[j]))
+    limit = VALIDITY_LIMIT_MOL_KG[model]
+    if ionic > limit:
+        parsed_warn.append(
+            f"ionic strength {ionic:.3g} mol/kg is above the {limit:g} mol/kg validity limit "
+            f"of the {model} activity model: treat the pH as approximate"
+        )
+    calib = None
+    if sv.added_mol_kg[j] or not np.isnan(sv.carbonate_from_alkalinity[j]):
+        cfa = sv.carbonate_from_alkalinity[j]
+        calib = Calibration(
+            _balance_ion(sv, j),
+            float(sv.added_mol_kg[j]) * rho,
+            None if np.isnan(cfa) else float(cfa) * rho,
+        )
+    return EquilibriumResult(
+        ph=ph,
+        temperature_c=float(asm.temperature_c[j]),
+        activity_model=model,
+        ionic_strength_mol_l=ionic * rho,
+        buffer_capacity_mmol_l_per_ph=float(ex.beta_mol_kg[j]) * rho * 1e3,
+        alkalinity=ex.alkalinity[j],
+        species=tuple(species),
+        systems=tuple(systems),
+        charge_balance_residual_mol_l=float(st.residual[j]) * rho,
+        iterations=int(st.iterations[j]),
+        database_version=db.version,
+        calcite_saturation_index=ex.calcite_si[j],
+        langelier_index=ex.langelier[j],
+        conductivity_estimate_us_cm=ex.conductivity_us_cm[j],
+        calibration=calib,
+        warnings=tuple(parsed_warn),
+    )
+
+
+def _balance_ion(sv: Solved, j: int) -> str | None:
+    return sv.balance_on[j]
+
+
+def _model_name(code: int) -> str:
+    from models.stream import ACTIVITY_MODELS
+
+    return ACTIVITY_MODELS[code]
+
+
+def _amount(name: str, charge: int, molal: float, log_g: float, rho: float) -> SpeciesAmount:
+    g = 10.0**log_g
+    return SpeciesAmount(name, int(charge), molal * rho, molal * g, g)

@@ -1,0 +1,268 @@
+"""From a stream's analysis to the solver's arrays.
+
+``parse_stream`` checks one StreamSpec against the thermodynamic data and converts
+every entry to mol/kg of water; ``assemble`` packs many parsed streams into one
+``BalanceProblem`` with all constants evaluated at each stream's temperature.
+
+Concentration scales: the solver works on the molal scale (the scale of the
+thermodynamic constants and of the IUPAC pH standards). Amounts given per litre are
+converted with the density of pure water at the stream's temperature,
+m [mol/kg] = c [mol/L] / ρ_w [kg/L]: the dilute-solution approximation, good to well
+under 1 % below about 0.1 mol/L of dissolved salts.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import NDArray
+
+from models import units, water
+from models.activity import model_code
+from models.errors import InputError
+from models.fractions import cumulative_pk
+from models.solver import BalanceProblem
+from models.stream import ACTIVITY_MODELS, BALANCE_IONS, StreamSpec
+from models.thermo import SystemData, ThermoDatabase
+
+__all__ = ["ALKALINITY", "ParsedStream", "parse_stream", "assemble", "Assembled"]
+
+ALKALINITY = "alkalinity"
+CARBONATE = "carbonate"
+
+
+@dataclass
+class ParsedStream:
+    """One stream's analysis on the molal scale, checked against the data."""
+
+    temperature_c: float
+    activity_model: str
+    density_kg_l: float
+    strong: dict[str, float]                 # strong ion -> mol/kg
+    systems: list[SystemData]                # slot order
+    totals: list[float]                      # mol/kg per slot (closed systems)
+    open_slot: int | None                    # slot of carbonate open to gas
+    co2_partial_pressure_atm: float | None
+    alkalinity_eq_kg: float | None
+    measured_ph: float | None
+    balance_on: str | None
+    warnings: list[str] = field(default_factory=list)
+
+
+def _system_for(name: str, customs: dict[str, SystemData], db: ThermoDatabase) -> SystemData | None:
+    return customs.get(name) or db.systems.get(name)
+
+
+def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
+    """Check and convert one stream; raise InputError naming the field at fault."""
+    t = float(spec.temperature_c)
+    if not (np.isfinite(t) and 0.0 <= t <= 100.0):
+        raise InputError("temperature must be between 0 and 100 °C", "/temperature_c")
+    if spec.activity_model not in ACTIVITY_MODELS:
+        raise InputError(
+            f"unknown activity model {spec.activity_model!r}; use one of {', '.join(ACTIVITY_MODELS)}",
+            "/activity_model",
+        )
+    rho = float(water.density_kg_l(t))
+    customs: dict[str, SystemData] = {}
+    for i, cs in enumerate(spec.custom_systems):
+        where = f"/custom_systems/{i}"
+        if cs.name in db.systems or cs.name in db.strong_ions or cs.name == ALKALINITY:
+            raise InputError(f"custom system name {cs.name!r} is already a built-in name", where + "/name")
+        if cs.name in customs:
+            raise InputError(f"custom system {cs.name!r} is declared twice", where + "/name")
+        try:
+            customs[cs.name] = db.custom_system(cs.name, cs.pka, cs.top_charge, cs.delta_h_kj_mol)
+        except InputError as exc:
+            raise InputError(exc.message, where + "/pka") from None
+    if not spec.composition:
+        raise InputError("the composition is empty: give at least one ion or system", "/composition")
+    strong: dict[str, float] = {}
+    systems: list[SystemData] = []
+    totals: list[float] = []
+    alkalinity: float | None = None
+    seen: set[str] = set()
+    for i, entry in enumerate(spec.composition):
+        where = f"/composition/{i}"
+        name = entry.name
+        if name in seen:
+            raise InputError(f"{name} appears twice in the composition", where + "/name")
+        seen.add(name)
+        value = float(entry.value)
+        if not np.isfinite(value) or value < 0.0:
+            raise InputError(f"{name}: the amount must be a finite number ≥ 0", where + "/value")
+        ion = db.strong_ions.get(name)
+        system = _system_for(name, customs, db)
+        try:
+            if ion is not None:
+                amount = units.to_mol_per_l(
+                    value, entry.unit, kind="strong_ion", formula=ion.formula,
+                    charge=ion.charge, as_atoms={}, name=name,
+                )
+            elif system is not None:
+                amount = units.to_mol_per_l(
+                    value, entry.unit, kind="system", formula=system.mass_formula,
+                    charge=0, as_atoms=system.as_atoms, name=name,
+                )
+            elif name == ALKALINITY:
+                amount = units.to_mol_per_l(
+                    value, entry.unit, kind="alkalinity", formula="CaCO3", charge=0,
+                    as_atoms={}, name=name,
+                )
+            else:
+                raise InputError(
+                    f"unknown species or system {name!r}: use a strong ion, a built-in system "
+                    "(see GET /v1/systems), 'alkalinity', or declare it in custom_systems",
+                    where + "/name",
+                )
+        except InputError as exc:
+            raise InputError(exc.message, exc.field or where + "/unit") from None
+        molal = float(amount) if units.is_per_kg(entry.unit) else float(amount) / rho
+        if ion is not None:
+            strong[name] = molal
+        elif system is not None:
+            systems.append(system)
+            totals.append(molal)
+        else:
+            alkalinity = molal
+    for cname in customs:
+        if cname not in seen:
+            raise InputError(
+                f"custom system {cname!r} is declared but has no amount in the composition",
+                "/custom_systems",
+            )
+    return _finish(spec, db, t, rho, strong, systems, totals, alkalinity)
+
+
+def _finish(
+    spec: StreamSpec,
+    db: ThermoDatabase,
+    t: float,
+    rho: float,
+    strong: dict[str, float],
+    systems: list[SystemData],
+    totals: list[float],
+    alkalinity: float | None,
+) -> ParsedStream:
+    warnings: list[str] = []
+    names = [s.name for s in systems]
+    pco2 = spec.co2_partial_pressure_atm
+    open_slot: int | None = None
+    if spec.balance_on is not None and spec.balance_on not in BALANCE_IONS:
+        raise InputError(f"balance_on must be one of {', '.join(BALANCE_IONS)}", "/balance_on")
+    if spec.balance_on is not None and spec.measured_ph is None:
+        raise InputError("balance_on needs measured_ph: the pH at which to close the balance", "/measured_ph")
+    if alkalinity is not None:
+        if spec.measured_ph is None:
+            raise InputError("alkalinity needs measured_ph to fix the carbonate total", "/measured_ph")
+        if CARBONATE in names:
+            raise InputError("give either the carbonate total or alkalinity, not both", "/composition")
+        if pco2 is not None:
+            raise InputError("alkalinity with a gas phase over-determines carbonate: give one", "/gas")
+        systems.append(db.systems[CARBONATE])
+        totals.append(0.0)
+    if pco2 is not None:
+        if CARBONATE in names:
+            open_slot = names.index(CARBONATE)
+            warnings.append(
+                "the carbonate total of the analysis is replaced by equilibrium with the gas phase"
+            )
+        else:
+            systems.append(db.systems[CARBONATE])
+            totals.append(0.0)
+            open_slot = len(systems) - 1
+    for s in systems:
+        for k in s.extrapolated_steps(t):
+            warnings.append(
+                f"{s.name}: pK{k + 1} is extrapolated beyond the temperature range of its fit"
+            )
+    return ParsedStream(
+        temperature_c=t,
+        activity_model=spec.activity_model,
+        density_kg_l=rho,
+        strong=strong,
+        systems=systems,
+        totals=totals,
+        open_slot=open_slot,
+        co2_partial_pressure_atm=pco2,
+        alkalinity_eq_kg=alkalinity,
+        measured_ph=spec.measured_ph,
+        balance_on=spec.balance_on,
+        warnings=warnings,
+    )
+
+
+@dataclass(frozen=True)
+class Assembled:
+    """A batch's BalanceProblem plus what the results need to name things."""
+
+    problem: BalanceProblem
+    temperature_c: NDArray[np.float64]
+    density_kg_l: NDArray[np.float64]
+    strong_names: tuple[str, ...]
+    strong_molal: NDArray[np.float64]        # (N, n_strong)
+    slots: list[list[SystemData]]            # per stream
+
+
+def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
+    """Pack parsed streams into one vectorized problem (constants at each temperature)."""
+    n = len(parsed)
+    temp = np.array([p.temperature_c for p in parsed], dtype=float)
+    rho = np.array([p.density_kg_l for p in parsed], dtype=float)
+    strong_names = tuple(db.strong_ions)
+    charges = np.array([db.strong_ions[s].charge for s in strong_names], dtype=float)
+    strong_m = np.zeros((n, len(strong_names)))
+    col = {s: j for j, s in enumerate(strong_names)}
+    for i, p in enumerate(parsed):
+        for s, v in p.strong.items():
+            strong_m[i, col[s]] = v
+    k_max = max(1, max(len(p.systems) for p in parsed))
+    p_max = 1 + max([s.n_steps for p in parsed for s in p.systems] + [1])
+    cum = np.full((n, k_max, p_max), np.inf)
+    cum[..., 0] = 0.0
+    charge = np.zeros((n, k_max, p_max))
+    size = np.zeros((n, k_max, p_max))
+    total = np.zeros((n, k_max))
+    is_open = np.zeros((n, k_max), dtype=bool)
+    open_neutral = np.zeros((n, k_max))
+    # Evaluate each system's pK at all temperatures that use it in one call.
+    users: dict[int, list[tuple[int, int]]] = {}
+    by_id: dict[int, SystemData] = {}
+    for i, p in enumerate(parsed):
+        for k, s in enumerate(p.systems):
+            users.setdefault(id(s), []).append((i, k))
+            by_id[id(s)] = s
+            ns = s.n_steps + 1
+            charge[i, k, :ns] = s.charges
+            size[i, k, :ns] = s.ion_size_angstrom
+            total[i, k] = p.totals[k]
+        if p.open_slot is not None:
+            is_open[i, p.open_slot] = True
+    for key, places in users.items():
+        s = by_id[key]
+        ii = np.array([i for i, _ in places])
+        kk = np.array([k for _, k in places])
+        pk = np.atleast_2d(s.pka(temp[ii]))
+        cum[ii, kk, : s.n_steps + 1] = cumulative_pk(pk)
+    if is_open.any():
+        rows, slots_ = np.nonzero(is_open)
+        pco2 = np.array([parsed[i].co2_partial_pressure_atm for i in rows], dtype=float)
+        open_neutral[rows, slots_] = 10.0 ** db.log_kh_co2(temp[rows]) * pco2
+    problem = BalanceProblem(
+        strong_charge=strong_m @ charges,
+        strong_ionic=strong_m @ (charges * charges),
+        pkw=np.asarray(db.pkw(temp), dtype=float),
+        a_dh=np.asarray(water.debye_huckel_a(temp), dtype=float),
+        b_dh=np.asarray(water.debye_huckel_b(temp), dtype=float),
+        activity_code=np.array([model_code(p.activity_model) for p in parsed], dtype=int),
+        size_h=np.full(n, db.ion_size("H+")),
+        size_oh=np.full(n, db.ion_size("OH-")),
+        total=total,
+        is_open=is_open,
+        open_neutral=open_neutral,
+        cum_pk=cum,
+        charge=charge,
+        ion_size=size,
+    )
+    return Assembled(problem, temp, rho, strong_names, strong_m, [p.systems for p in parsed])
