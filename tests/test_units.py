@@ -213,7 +213,7 @@ def test_sulfate_as_n_is_refused_with_the_units_that_fit() -> None:
     ],
 )
 def test_units_that_do_not_fit_are_refused(unit: str, entity: dict[str, object]) -> None:
-    with pytest.raises(InputError, match=re.escape(f"{entity['name']} cannot be given in {unit};")):
+    with pytest.raises(InputError, match=re.escape(f"{entity['name']} cannot be given in {unit}")):
         to_mol_per_l(1.0, unit, **entity)  # type: ignore[arg-type]
 
 
