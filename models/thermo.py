@@ -189,7 +189,8 @@ class HenryConstant:
         if self.fit is not None:
             return 10.0 ** (-self.fit.pk(temperature_c))
         t_k = np.asarray(temperature_c, dtype=np.float64) + water.KELVIN
-        return self.kh_25c_mol_kg_atm * np.exp(self.temperature_coefficient_k * (1.0 / t_k - 1.0 / T_REF_K))
+        slope = self.temperature_coefficient_k
+        return self.kh_25c_mol_kg_atm * np.exp(slope * (1.0 / t_k - 1.0 / T_REF_K))
 
 
 def _fit(raw: dict[str, Any] | None) -> TemperatureFit | None:
@@ -298,7 +299,8 @@ class ThermoDatabase:
             name=name, species=tuple(_custom_species(name, z) for z in charges), charges=charges,
             top_charge=int(top_charge), mass_formula="", as_atoms={},
             mass_basis_note="custom system: no mass basis, use molar units (mol/L, mmol/L, meq/L)",
-            steps=steps, ion_size_angstrom=tuple(0.0 if z == 0 else DEFAULT_ION_SIZE for z in charges),
+            steps=steps,
+            ion_size_angstrom=tuple(0.0 if z == 0 else DEFAULT_ION_SIZE for z in charges),
             notes="user-declared; van 't Hoff temperature dependence (ΔCp = 0)", builtin=False,
         )
 
@@ -409,8 +411,9 @@ def load_database() -> ThermoDatabase:
         "CO2", float(10.0 ** -co2_fit.pk(25.0)), _fit_slope_over_r(co2_fit),
         raw["co2"]["source"], raw["co2"]["provenance"], co2_fit)}
     for r in raw["henry"]:
-        henry[r["gas"]] = HenryConstant(r["gas"], float(r["kh_25c_mol_kg_atm"]),
-                                        float(r["temperature_coefficient_k"]), r["source"], r["provenance"])
+        henry[r["gas"]] = HenryConstant(
+            r["gas"], float(r["kh_25c_mol_kg_atm"]), float(r["temperature_coefficient_k"]),
+            r["source"], r["provenance"])
     conductivity = {r["species"]: float(r["lambda_s_cm2_mol"]) for r in raw["conductivity"]["ion"]}
     conductivity.update({i.name: i.limiting_conductivity_s_cm2_mol for i in ions.values()})
     calcite = _fit(raw["calcite"]["log_ksp"])
