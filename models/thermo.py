@@ -271,6 +271,12 @@ class ThermoDatabase:
         """λ° at 25 °C per unit charge [S cm²/mol], or None when not in the database."""
         return self._conductivity.get(species)
 
+    def onsager_limiting_law_25c(self) -> tuple[float, float]:
+        """Onsager coefficients (b1 [(L/mol)^0.5], b2 [S cm²/mol (L/mol)^0.5]) at 25 °C:
+        Λ = Λ° − (b1 Λ° + b2) √c; Robinson & Stokes (1959)."""
+        raw = read_database_file()["conductivity"]["onsager_25c"]
+        return float(raw["b1"]), float(raw["b2"])
+
     def custom_system(
         self,
         name: str,

@@ -269,6 +269,20 @@ def test_limiting_conductivity(db: ThermoDatabase) -> None:
         assert db.limiting_conductivity(ion.name) == ion.limiting_conductivity_s_cm2_mol
 
 
+def test_onsager_coefficients(db: ThermoDatabase) -> None:
+    # Source: Robinson & Stokes (1959) b1 = 0.2289, b2 = 60.20 [MEMORY, H]; recomputed from the
+    # theory b1 = 8.204e5/(εT)^1.5, b2 = 82.04/(η(εT)^0.5), ε = 78.54, η = 0.008903 P [MEMORY, H].
+    b1, b2 = db.onsager_limiting_law_25c()
+    et = 78.54 * 298.15
+    assert b1 == pytest.approx(8.204e5 / et**1.5, abs=0.001)
+    assert b2 == pytest.approx(82.04 / (0.008903 * et**0.5), abs=0.05)
+    # 0.0100 M KCl: with the √c/(1+√c) extension Λ ≈ 141.2 S cm²/mol, the Standard Methods 2510
+    # calibration value 1412 µS/cm [MEMORY, H]; the bare √c law overcorrects (≈ 140.3).
+    lam0 = db.limiting_conductivity("K+") + db.limiting_conductivity("Cl-")
+    sqrt_c = 0.1
+    assert lam0 - (b1 * lam0 + b2) * sqrt_c / (1 + sqrt_c) == pytest.approx(141.2, abs=0.2)
+
+
 def _walk_sources(node: Any, path: str, covered: bool, bad: list[str]) -> None:
     """Collect numbers in ``node`` not covered by a ``source`` / ``<prefix>_source`` key."""
     if isinstance(node, list):
