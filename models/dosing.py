@@ -1,0 +1,354 @@
+"""Reagent dosing to a pH setpoint, titration curves and process gain.
+
+A dose d [mol of active substance per litre of stream] adds ``d·adds[x]`` of each
+strong ion and system total the reagent carries (``Reagent.adds``), so the charge
+balance is linear in d at fixed activity coefficients:
+
+    F(pH; d) = F(pH; 0) + d · ΔF(pH)
+
+At the setpoint pH the dose therefore follows exactly from F(pH_set; d) = 0, with the
+ionic strength (which depends on d) iterated to self-consistency — the full
+equilibrium model (activities, temperature, open CO2) at every step. Because pH is
+monotone in the dose, that d is the unique root; the dosed stream is then solved
+forward and its pH returned as ``final_ph`` (checked against the setpoint).
+Volumes: the reagent's own volume is neglected (dose ≪ stream), stated in the docs.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field, replace
+import numpy as np
+from numpy.typing import NDArray
+
+from models.derived import buffer_capacity
+from models.equilibrium import solve_arrays
+from models.errors import InputError, SolveError, UnreachableSetpoint
+from models.reagents import Reagent
+from models.prepare import Assembled, ParsedStream, parse_stream
+from models.solver import (
+    I_ATOL,
+    I_RTOL,
+    MAX_OUTER,
+    OK,
+    PH_MAX,
+    PH_MIN,
+    BalanceProblem,
+    balance,
+    gammas,
+    ionic_strength_of,
+    solve_balance,
+    species_state,
+)
+from models.stream import Entry, StreamSpec
+from models.thermo import ThermoDatabase, load_database
+
+__all__ = [
+    "MAX_DOSE_MOL_L",
+    "SETPOINT_TOLERANCE_PH",
+    "HIGH_GAIN_RULE",
+    "DosePlan",
+    "DoseCurve",
+    "plan_doses",
+    "dose_curve",
+]
+
+#: Largest dose considered [mol/L of stream]: beyond this the reagent volume would no
+#: longer be negligible and the answer is not a dosing problem any more.
+MAX_DOSE_MOL_L = 1.0
+#: |final pH − setpoint| that a returned dose must meet [pH].
+SETPOINT_TOLERANCE_PH = 1e-3
+#: Rule of thumb of the trade (common practice, no single source): when a 1 % error in
+#: reagent flow moves the pH by more than 0.1 unit at the setpoint, one dosing stage
+#: cannot hold the pH; use two stages or more buffering (equalisation).
+HIGH_GAIN_RULE = (0.01, 0.1)
+GAIN_STEP_PH = 1e-4
+
+
+@dataclass(frozen=True)
+class DosePlan:
+    """Dose of active substance for one stream [mol/L], with the model's verdict."""
+
+    dose_mol_l: float
+    initial_ph: float
+    final_ph: float
+    gain_ph_per_mol_l: float
+    reachable_ph: tuple[float, float]
+    already_met: bool
+    final_spec: StreamSpec
+    warnings: list[str] = field(default_factory=list)
+
+
+@dataclass(frozen=True)
+class DoseCurve:
+    """pH and β [mol/L per pH] at each dose [mol/L]; equivalence-point doses [mol/L]."""
+
+    dose_mol_l: NDArray[np.float64]
+    ph: NDArray[np.float64]
+    beta_mol_l: NDArray[np.float64]
+    equivalence_dose_mol_l: tuple[float, ...]
+    equivalence_ph: tuple[float, ...]
+
+
+def _with_reagent_slots(spec: StreamSpec, reagent: Reagent, db: ThermoDatabase) -> StreamSpec:
+    names = {e.name for e in spec.composition}
+    extra = tuple(
+        Entry(x, 0.0, "mol/L") for x in reagent.adds if x in db.systems and x not in names
+    )
+    return replace(spec, composition=spec.composition + extra) if extra else spec
+
+
+def dosed_spec(spec: StreamSpec, reagent: Reagent, dose_mol_l: float) -> StreamSpec:
+    """The stream after the dose, as an analysis (amounts in mol/L)."""
+    amounts: dict[str, float] = {}
+    entries: list[Entry] = []
+    for e in spec.composition:
+        if e.name in reagent.adds:
+            amounts[e.name] = e.value
+        entries.append(e)
+    out: list[Entry] = []
+    from models.units import to_mol_per_l  # local: only needed here
+
+    db = load_database()
+    rho = None
+    for e in entries:
+        if e.name in reagent.adds:
+            ion = db.strong_ions.get(e.name)
+            sysd = db.systems.get(e.name)
+            kind = "strong_ion" if ion else "system"
+            mol = float(
+                to_mol_per_l(
+                    e.value, e.unit, kind=kind,
+                    formula=ion.formula if ion else sysd.mass_formula,
+                    charge=ion.charge if ion else 0, as_atoms={} if ion else sysd.as_atoms,
+                    name=e.name,
+                )
+            )
+            out.append(Entry(e.name, mol + dose_mol_l * reagent.adds[e.name], "mol/L"))
+        else:
+            out.append(e)
+    present = {e.name for e in out}
+    for name, coef in reagent.adds.items():
+        if name not in present:
+            out.append(Entry(name, dose_mol_l * coef, "mol/L"))
+    del rho
+    return replace(spec, composition=tuple(out))
+
+
+def _direction(asm: Assembled, reagent: Reagent, db: ThermoDatabase) -> tuple[NDArray, NDArray, NDArray]:
+    """Per unit dose [per mol/L]: Δ strong charge, Δ Σmz², Δ totals (N, K), molal."""
+    n = asm.problem.n_streams
+    rho = asm.density_kg_l
+    d_charge = np.zeros(n)
+    d_ionic = np.zeros(n)
+    d_total = np.zeros_like(asm.problem.total)
+    for name, coef in reagent.adds.items():
+        if name in db.strong_ions:
+            z = db.strong_ions[name].charge
+            d_charge += coef * z / rho
+            d_ionic += coef * z * z / rho
+        for i, slots in enumerate(asm.slots):
+            for k, s in enumerate(slots):
+                if s.name == name and not asm.problem.is_open[i, k]:
+                    d_total[i, k] += coef / rho[i]
+    return d_charge, d_ionic, d_total
+
+
+def _shift(p: BalanceProblem, d: NDArray, dc: NDArray, di: NDArray, dt: NDArray) -> BalanceProblem:
+    fields = {k: getattr(p, k) for k in p.__dataclass_fields__}
+    fields["strong_charge"] = p.strong_charge + d * dc
+    fields["strong_ionic"] = p.strong_ionic + d * di
+    fields["total"] = p.total + d[:, None] * dt
+    return BalanceProblem(**fields)
+
+
+def dose_at_ph(
+    p: BalanceProblem, ph: NDArray, dc: NDArray, di: NDArray, dt: NDArray, ionic0: NDArray
+) -> tuple[NDArray, NDArray]:
+    """Dose [mol/L] that puts each stream exactly at ``ph``; NaN where the reagent
+    cannot move the balance that way (ΔF of the wrong sign). Returns (dose, converged)."""
+    ionic = ionic0.copy()
+    d = np.zeros_like(ph)
+    conv = np.zeros(ph.shape, dtype=bool)
+    for _ in range(MAX_OUTER):
+        lg, lh, loh = gammas(p, ionic)
+        f0, *_ = balance(p, ph, lg, lh, loh)
+        m1, _, _ = species_state(_shift(p, np.ones_like(ph), dc * 0, di * 0, dt), ph, lg, lh, loh)
+        m0, _, _ = species_state(p, ph, lg, lh, loh)
+        df = dc + ((m1 - m0) * p.charge).sum(axis=(1, 2))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            d = np.where(df != 0, -f0 / df, np.nan)
+        shifted = _shift(p, np.nan_to_num(d), dc, di, dt)
+        m, m_h, m_oh = species_state(shifted, ph, lg, lh, loh)
+        new = ionic_strength_of(shifted, m, m_h, m_oh)
+        conv = np.abs(new - ionic) <= I_ATOL + I_RTOL * new
+        ionic = np.maximum(new, 0.0)
+        if conv.all():
+            break
+    return d, conv
+
+
+def _forward(p: BalanceProblem, d: NDArray, dc, di, dt) -> tuple[NDArray, NDArray, NDArray]:
+    st = solve_balance(_shift(p, d, dc, di, dt))
+    return st.ph, st.ionic_strength, st.status
+
+
+def _ceiling(reagent: Reagent, db: ThermoDatabase, parsed: list[ParsedStream]) -> NDArray:
+    """Largest dose [mol/L] per stream: what a slurry can dissolve (solubility table of
+    the reagent), CO2 saturation at 1 atm (Henry constant), else MAX_DOSE_MOL_L."""
+    cap = np.full(len(parsed), MAX_DOSE_MOL_L)
+    for i, ps in enumerate(parsed):
+        limit_mol_kg = None
+        if reagent.form == "gas" and reagent.formula == "CO2":
+            limit_mol_kg = float(10.0 ** db.log_kh_co2(ps.temperature_c))  # at 1 atm
+        else:
+            sol = reagent.solubility_g_per_100g_h2o(ps.temperature_c)
+            if sol is not None:
+                limit_mol_kg = sol * 10.0 / reagent.molar_mass_g_mol
+        if limit_mol_kg is not None:
+            cap[i] = min(cap[i], limit_mol_kg * ps.density_kg_l)
+    return cap
+
+
+def plan_doses(
+    specs: Sequence[StreamSpec],
+    reagent: Reagent,
+    setpoint_ph: float | Sequence[float],
+    db: ThermoDatabase | None = None,
+) -> list[DosePlan | Exception]:
+    """Dose of ``reagent`` bringing each stream to its setpoint, in one vectorized pass.
+
+    Each item is a DosePlan or the exception that stream earned (InputError,
+    SolveError, UnreachableSetpoint with the reachable pH range).
+    """
+    db = db or load_database()
+    n = len(specs)
+    sp = np.broadcast_to(np.asarray(setpoint_ph, dtype=float), (n,)).copy()
+    out: list[DosePlan | Exception | None] = [None] * n
+    parsed: list[ParsedStream] = []
+    where: list[int] = []
+    for i, spec in enumerate(specs):
+        try:
+            if spec.balance_on is not None or any(e.name == "alkalinity" for e in spec.composition):
+                raise InputError(
+                    "dose a calibrated analysis: calibrate with POST /v1/equilibrium first and "
+                    "post the closed composition", "/stream/balance_on",
+                )
+            parsed.append(parse_stream(_with_reagent_slots(spec, reagent, db), db))
+            where.append(i)
+        except InputError as exc:
+            out[i] = exc
+    if parsed:
+        _plan(parsed, [specs[i] for i in where], reagent, sp[where], db, out, where)
+    return [o for o in out if o is not None]
+
+
+def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
+    sv = solve_arrays(parsed, db)
+    asm, p = sv.assembled, sv.problem
+    dc, di, dt = _direction(asm, reagent, db)
+    ph0 = sv.state.ph
+    status0 = sv.state.status
+    base = reagent.kind == "base"
+    cap = _ceiling(reagent, db, parsed)
+    ph_cap, _, status_cap = _forward(p, cap, dc, di, dt)
+    dose, conv = dose_at_ph(p, sp, dc, di, dt, sv.state.ionic_strength)
+    lo, hi = (ph0, ph_cap) if base else (ph_cap, ph0)
+    met = (ph0 >= sp) if base else (ph0 <= sp)
+    dose = np.where(met, 0.0, dose)
+    ok_dose = np.isfinite(dose) & (dose >= 0) & (dose <= cap * (1 + 1e-9))
+    final_ph, _, status_f = _forward(p, np.where(ok_dose, dose, 0.0), dc, di, dt)
+    gain = _gain(p, sp, dc, di, dt, sv.state.ionic_strength)
+    for j, i in enumerate(where):
+        if status0[j] != OK:
+            out[i] = SolveError("the stream itself does not solve: " + str(status0[j]), "stream_not_solvable")
+            continue
+        reach = (float(lo[j]), float(hi[j]))
+        if not met[j] and not (ok_dose[j] and conv[j]):
+            what = "raise" if base else "lower"
+            out[i] = UnreachableSetpoint(
+                f"{reagent.name} can {what} this stream's pH only within {reach[0]:.2f}–{reach[1]:.2f} "
+                f"(from its own pH {ph0[j]:.2f} to the limit at {cap[j] * 1e3:.4g} mmol/L); "
+                f"setpoint {sp[j]:.2f} is out of reach",
+                reach[0], reach[1],
+            )
+            continue
+        if status_f[j] != OK or (not met[j] and abs(final_ph[j] - sp[j]) > SETPOINT_TOLERANCE_PH):
+            out[i] = SolveError("the dosed stream did not settle at the setpoint", "dose_not_converged")
+            continue
+        d = float(dose[j])
+        warnings: list[str] = []
+        g = float(gain[j])
+        if d > 0 and abs(g) * HIGH_GAIN_RULE[0] * d > HIGH_GAIN_RULE[1]:
+            warnings.append(
+                f"process gain is high: a 1 % error in reagent flow moves the pH by "
+                f"{abs(g) * 0.01 * d:.2f} at the setpoint (rule of thumb of the trade: above "
+                f"{HIGH_GAIN_RULE[1]} pH, single-stage control is impractical; use two stages "
+                "or equalise the stream first)"
+            )
+        out[i] = DosePlan(
+            dose_mol_l=d,
+            initial_ph=float(ph0[j]),
+            final_ph=float(final_ph[j]),
+            gain_ph_per_mol_l=g,
+            reachable_ph=reach,
+            already_met=bool(met[j]),
+            final_spec=dosed_spec(specs[j], reagent, d),
+            warnings=warnings,
+        )
+
+
+def _gain(p, sp, dc, di, dt, ionic) -> NDArray:
+    """dpH/d(dose) [pH per mol/L] at the setpoint: 1 / (d dose / d pH) by central difference."""
+    up, _ = dose_at_ph(p, sp + GAIN_STEP_PH, dc, di, dt, ionic)
+    down, _ = dose_at_ph(p, sp - GAIN_STEP_PH, dc, di, dt, ionic)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return (2 * GAIN_STEP_PH) / (up - down)
+
+
+def dose_curve(
+    spec: StreamSpec,
+    reagent: Reagent,
+    doses_mol_l: NDArray[np.float64],
+    db: ThermoDatabase | None = None,
+) -> DoseCurve:
+    """pH and β of one stream at each dose, all doses in one vectorized solve."""
+    db = db or load_database()
+    ps = parse_stream(_with_reagent_slots(spec, reagent, db), db)
+    doses = np.asarray(doses_mol_l, dtype=float)
+    sv = solve_arrays([ps] * doses.size, db)
+    asm, p = sv.assembled, sv.problem
+    dc, di, dt = _direction(asm, reagent, db)
+    shifted = _shift(p, doses, dc, di, dt)
+    st = solve_balance(shifted)
+    bad = st.status != OK
+    if bad.any():
+        k = int(np.argmax(bad))
+        raise SolveError(
+            f"the curve leaves the model at {doses[k] * 1e3:.4g} mmol/L (pH range {PH_MIN:g}–{PH_MAX:g})",
+            "curve_outside_model",
+        )
+    beta = buffer_capacity(shifted, st.ph, st.ionic_strength) * asm.density_kg_l
+    eq_d, eq_ph = _equivalence_points(doses, st.ph)
+    return DoseCurve(doses, st.ph, beta, eq_d, eq_ph)
+
+
+def _equivalence_points(d: NDArray, ph: NDArray) -> tuple[tuple[float, ...], tuple[float, ...]]:
+    """Inflections of the curve: local maxima of |dpH/d dose| that stand out (3× the
+    median slope), refined by a parabola through the three slopes around each."""
+    if d.size < 5:
+        return (), ()
+    slope = np.abs(np.diff(ph) / np.diff(d))
+    mid = 0.5 * (d[1:] + d[:-1])
+    floor = 3.0 * np.median(slope)
+    found_d: list[float] = []
+    found_ph: list[float] = []
+    for k in range(1, slope.size - 1):
+        if slope[k] > slope[k - 1] and slope[k] >= slope[k + 1] and slope[k] > floor:
+            y0, y1, y2 = slope[k - 1], slope[k], slope[k + 1]
+            den = y0 - 2 * y1 + y2
+            shift = 0.5 * (y0 - y2) / den if den != 0 else 0.0
+            x = mid[k] + shift * (mid[k + 1] - mid[k])
+            found_d.append(float(x))
+            found_ph.append(float(np.interp(x, d, ph)))
+    return tuple(found_d), tuple(found_ph)
