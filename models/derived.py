@@ -174,7 +174,7 @@ def _conductivity(sv: Solved, db: ThermoDatabase) -> list[float | None]:
     """κ(25 °C) estimate [µS/cm] = 1000 Σ λ_i |z_i| c_i with an Onsager-type correction
     λ_i = λ°_i − (B2/2·|z_i| + B1·|z_i|·λ°_i)·√I/(1 + √I) (coefficients of the Onsager
     limiting law for water at 25 °C, in the data file). Ions without a λ° are skipped."""
-    b1, b2 = (0.2289, 60.20)  # TEMP until data file entry
+    b1, b2 = db.onsager_limiting_law_25c()
     asm, p, st = sv.assembled, sv.problem, sv.state
     n = st.ph.shape[0]
     sqrt_i = np.sqrt(np.maximum(st.ionic_strength, 0.0))
