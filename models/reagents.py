@@ -65,7 +65,9 @@ REAGENT_KINDS: tuple[str, ...] = ("acid", "base")
 REAGENT_FORMS: tuple[str, ...] = ("solution", "slurry", "solid", "gas")
 STRENGTH_MEANING: dict[str, str] = {
     "solution": "% w/w of the active substance in the solution",
-    "slurry": "% w/w of dry product in the slurry (the dry product has purity_pct_w active substance)",
+    "slurry": (
+        "% w/w of dry product in the slurry (the dry product has purity_pct_w active substance)"
+    ),
     "solid": "purity: % w/w of the active substance in the product as delivered",
     "gas": "purity: % w/w of the active substance in the gas as delivered",
 }
@@ -125,10 +127,13 @@ class Reagent:
         the table, beyond ± DENSITY_TEMPERATURE_BAND_C of its temperature, or for a gas/solid.
         """
         if not self.has_volume or not self.density_table:
-            raise InputError(f"{self.name} is dosed by mass ({self.form}); it has no product density")
+            raise InputError(
+                f"{self.name} is dosed by mass ({self.form}); it has no product density"
+            )
         pct = np.array([p for p, _ in self.density_table])
         rho = np.array([r for _, r in self.density_table])
-        if not math.isfinite(strength_pct_w) or not pct[0] - _TOL <= strength_pct_w <= pct[-1] + _TOL:
+        inside = pct[0] - _TOL <= strength_pct_w <= pct[-1] + _TOL
+        if not math.isfinite(strength_pct_w) or not inside:
             raise InputError(
                 f"{self.name} density is known for {pct[0]:g}-{pct[-1]:g} % w/w only, "
                 f"not {strength_pct_w:g} %"
@@ -137,7 +142,8 @@ class Reagent:
         if t_ref is not None and not abs(temperature_c - t_ref) <= DENSITY_TEMPERATURE_BAND_C:
             raise InputError(
                 f"{self.name} density is tabulated at {t_ref:g} °C and used for "
-                f"{t_ref - DENSITY_TEMPERATURE_BAND_C:g}-{t_ref + DENSITY_TEMPERATURE_BAND_C:g} °C; "
+                f"{t_ref - DENSITY_TEMPERATURE_BAND_C:g}-"
+                f"{t_ref + DENSITY_TEMPERATURE_BAND_C:g} °C; "
                 f"{temperature_c:g} °C is outside"
             )
         return float(np.interp(strength_pct_w, pct, rho))
@@ -154,7 +160,8 @@ class Reagent:
         s = np.array([y for _, y in self.solubility_table])
         if not t[0] - _TOL <= temperature_c <= t[-1] + _TOL:
             raise InputError(
-                f"{self.name} solubility is known for {t[0]:g}-{t[-1]:g} °C only, not {temperature_c:g} °C"
+                f"{self.name} solubility is known for {t[0]:g}-{t[-1]:g} °C only, "
+                f"not {temperature_c:g} °C"
             )
         return float(np.interp(temperature_c, t, s))
 
@@ -167,7 +174,8 @@ class Reagent:
         )
         molarity = None
         if default_density is not None and self.form == "solution":
-            molarity = default_density * 1000.0 * self.default_strength_pct_w / 100.0 / self.molar_mass_g_mol
+            active_g_l = default_density * 1000.0 * self.default_strength_pct_w / 100.0
+            molarity = active_g_l / self.molar_mass_g_mol
         return {
             "name": self.name,
             "display_name": self.display_name,
@@ -184,7 +192,9 @@ class Reagent:
             "default_density_kg_l": default_density,
             "default_molarity_mol_l": molarity,
             "density_temperature_c": self.density_temperature_c if self.density_table else None,
-            "density_table": [{"strength_pct_w": p, "density_kg_l": r} for p, r in self.density_table],
+            "density_table": [
+                {"strength_pct_w": p, "density_kg_l": r} for p, r in self.density_table
+            ],
             "solubility_g_per_100g_h2o": [
                 {"temperature_c": t, "solubility": s} for t, s in self.solubility_table
             ],
@@ -216,7 +226,8 @@ def _validate_adds(
             raise InputError(f"reagent {name}: amount of {species} must be a number")
         if not math.isfinite(amount) or not 0.0 < amount <= 100.0:
             raise InputError(
-                f"reagent {name}: {species} must be added at more than 0 and at most 100 mol per mol"
+                f"reagent {name}: {species} must be added at more than 0 "
+                "and at most 100 mol per mol"
             )
         body, charge = split_charge(species)
         if charge:
@@ -296,7 +307,9 @@ def _from_toml(name: str, raw: dict[str, Any], doc: dict[str, Any]) -> Reagent:
         note("density", raw["particle"])
         note("density", water)
         density_t = float(water["temperature_c"])
-        density = _slurry_table(strength_range, float(raw["particle"]["density_kg_l"]), float(water["kg_l"]))
+        density = _slurry_table(
+            strength_range, float(raw["particle"]["density_kg_l"]), float(water["kg_l"])
+        )
     elif form in ("solid", "gas"):
         purity = float(strength["default_pct_w"])
     solubility = tuple(
@@ -370,7 +383,9 @@ def custom_reagent(
         raise InputError(f"'{name}' is a built-in reagent; choose another name for a custom one")
     clean = _validate_adds(name, adds, kind, known_systems)
     if (formula is None) == (molar_mass_g_mol is None):
-        raise InputError(f"reagent {name}: give either the formula or the molar mass of the active substance")
+        raise InputError(
+            f"reagent {name}: give either the formula or the molar mass of the active substance"
+        )
     if formula is not None:
         mass = formula_mass_g_mol(formula)
     else:
@@ -435,12 +450,15 @@ def product_amounts(
     else:
         if purity_pct_w is not None:
             raise InputError(
-                f"{reagent.name} is a {reagent.form}: its strength is its purity; give strength_pct_w only"
+                f"{reagent.name} is a {reagent.form}: its strength is its purity; "
+                "give strength_pct_w only"
             )
         product_mg_l = dose_mg_l / (strength / 100.0)
         purity = strength if reagent.form in ("solid", "gas") else 100.0
     density = reagent.density_kg_l(strength, temperature_c) if reagent.has_volume else None
-    l_per_m3 = product_mg_l / 1000.0 / density if density is not None else None  # g/m³ → kg/m³ → L/m³
+    # g/m³ → kg/m³ → L/m³
+    l_per_m3 = product_mg_l / 1000.0 / density if density is not None else None
+    l_h = l_per_m3 * flow_m3_h if l_per_m3 is not None and flow_m3_h is not None else None
     return {
         "dose_mmol_l": dose_mmol_l,
         "dose_mg_l": dose_mg_l,
@@ -449,6 +467,6 @@ def product_amounts(
         "density_kg_l": density,
         "product_mg_l": product_mg_l,
         "product_l_per_m3": l_per_m3,
-        "product_l_h": l_per_m3 * flow_m3_h if l_per_m3 is not None and flow_m3_h is not None else None,
+        "product_l_h": l_h,
         "product_kg_h": product_mg_l * flow_m3_h / 1000.0 if flow_m3_h is not None else None,
     }
