@@ -40,7 +40,9 @@ from models.solver import (
     solve_balance,
     species_state,
 )
+from models import water
 from models.stream import Entry, StreamSpec
+from models.units import is_per_kg, to_mol_per_l
 from models.thermo import ThermoDatabase, load_database
 
 __all__ = [
@@ -99,39 +101,31 @@ def _with_reagent_slots(spec: StreamSpec, reagent: Reagent, db: ThermoDatabase) 
 
 
 def dosed_spec(spec: StreamSpec, reagent: Reagent, dose_mol_l: float) -> StreamSpec:
-    """The stream after the dose, as an analysis (amounts in mol/L)."""
-    amounts: dict[str, float] = {}
-    entries: list[Entry] = []
-    for e in spec.composition:
-        if e.name in reagent.adds:
-            amounts[e.name] = e.value
-        entries.append(e)
-    out: list[Entry] = []
-    from models.units import to_mol_per_l  # local: only needed here
-
+    """The stream after a dose [mol/L], as an analysis: the entries the reagent adds to
+    are restated in mol/L with the dose included; the rest are kept as given."""
     db = load_database()
-    rho = None
-    for e in entries:
-        if e.name in reagent.adds:
-            ion = db.strong_ions.get(e.name)
-            sysd = db.systems.get(e.name)
-            kind = "strong_ion" if ion else "system"
-            mol = float(
-                to_mol_per_l(
-                    e.value, e.unit, kind=kind,
-                    formula=ion.formula if ion else sysd.mass_formula,
-                    charge=ion.charge if ion else 0, as_atoms={} if ion else sysd.as_atoms,
-                    name=e.name,
-                )
-            )
-            out.append(Entry(e.name, mol + dose_mol_l * reagent.adds[e.name], "mol/L"))
-        else:
+    out: list[Entry] = []
+    for e in spec.composition:
+        if e.name not in reagent.adds:
             out.append(e)
+            continue
+        ion = db.strong_ions.get(e.name)
+        sysd = db.systems[e.name] if ion is None else None
+        mol = float(
+            to_mol_per_l(
+                e.value, e.unit,
+                kind="strong_ion" if ion else "system",
+                formula=ion.formula if ion else sysd.mass_formula,
+                charge=ion.charge if ion else 0,
+                as_atoms={} if ion else sysd.as_atoms,
+                name=e.name,
+            )
+        )
+        if is_per_kg(e.unit):
+            mol *= float(water.density_kg_l(spec.temperature_c))
+        out.append(Entry(e.name, mol + dose_mol_l * reagent.adds[e.name], "mol/L"))
     present = {e.name for e in out}
-    for name, coef in reagent.adds.items():
-        if name not in present:
-            out.append(Entry(name, dose_mol_l * coef, "mol/L"))
-    del rho
+    out += [Entry(x, dose_mol_l * c, "mol/L") for x, c in reagent.adds.items() if x not in present]
     return replace(spec, composition=tuple(out))
 
 
