@@ -1,0 +1,85 @@
+"""The app factory: ``create_app(settings, core)``; ``service.app:app`` is the ASGI app."""
+
+from __future__ import annotations
+
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+from typing import Any
+
+import anyio.to_thread
+from fastapi import Depends, FastAPI
+from fastapi.middleware.cors import CORSMiddleware
+
+from service.auth import API_KEY_HEADER, api_key_dependency
+from service.core import Core, default_core
+from service.logging import configure_logging
+from service.metrics import Metrics
+from service.middleware import REQUEST_ID_HEADER, BodyLimitMiddleware, RequestContextMiddleware
+from service.openapi import build_openapi
+from service.problems import install_problem_handlers
+from service.routes_catalog import catalog_router
+from service.routes_equilibrium import equilibrium_router
+from service.routes_ops import ops_router
+from service.settings import Settings
+from service.solving import Solver
+from service.state import AppState, service_version
+
+__all__ = ["create_app", "app"]
+
+
+def create_app(settings: Settings | None = None, core: Core | None = None) -> FastAPI:
+    """Build the service; ``settings`` default to the environment, ``core`` to ``models``."""
+    settings = settings or Settings.from_env()
+    core = core or default_core()
+    state = AppState(core)
+    metrics = Metrics(version=state.version)
+
+    @asynccontextmanager
+    async def lifespan(_: FastAPI) -> AsyncIterator[None]:
+        configure_logging(settings.log_level)
+        await anyio.to_thread.run_sync(state.ensure_loaded)
+        metrics.set_build_info(str(state.database.version))
+        yield
+
+    app = FastAPI(
+        title="Protolyte",
+        version=service_version(),
+        lifespan=lifespan,
+        redirect_slashes=False,
+    )
+    app.state.protolyte = state
+    app.state.metrics = metrics
+    app.state.settings = settings
+    install_problem_handlers(app)
+
+    auth = [Depends(api_key_dependency(settings.api_key))]
+    solver = Solver(core, metrics, settings.solve_time_budget_s)
+    app.include_router(equilibrium_router(solver, settings.batch_max_items), dependencies=auth)
+    version = core.reagents_version() if core.reagents_version else None
+    app.include_router(
+        catalog_router(with_reagents=core.load_reagents is not None, reagents_version=version),
+        dependencies=auth,
+    )
+    app.include_router(ops_router(metrics))
+
+    if settings.cors_origins:
+        app.add_middleware(
+            CORSMiddleware,
+            allow_origins=list(settings.cors_origins),
+            allow_methods=["GET", "POST"],
+            allow_headers=["Content-Type", API_KEY_HEADER, REQUEST_ID_HEADER],
+            expose_headers=[REQUEST_ID_HEADER],
+        )
+    app.add_middleware(BodyLimitMiddleware, limit=settings.body_limit_bytes)
+    app.add_middleware(RequestContextMiddleware, metrics=metrics)
+
+    def openapi() -> dict[str, Any]:
+        return build_openapi(
+            app, api_key_required=settings.api_key is not None, batch_max_items=settings.batch_max_items
+        )
+
+    app.openapi = openapi  # type: ignore[method-assign]
+    return app
+
+
+app = create_app()

@@ -1,0 +1,124 @@
+"""Translate between the HTTP schemas and the core's plain records."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable
+
+from models.results import EquilibriumResult
+from models.stream import CustomSystem, Entry, StreamSpec
+
+from service.schemas import (
+    Alkalinity,
+    Calibration,
+    EquilibriumResponse,
+    ModelInfo,
+    Species,
+    Stream,
+    SystemFractions,
+)
+
+__all__ = ["NonFiniteResult", "to_spec", "to_response"]
+
+
+class NonFiniteResult(RuntimeError):
+    """The core returned a non-finite number as a result: a defect, never sent as data."""
+
+
+def to_spec(stream: Stream) -> StreamSpec:
+    """The core's input record for a validated stream."""
+    return StreamSpec(
+        composition=tuple(Entry(e.name, float(e.value), e.unit) for e in stream.composition),
+        temperature_c=float(stream.temperature_c),
+        activity_model=stream.activity_model,
+        custom_systems=tuple(
+            CustomSystem(
+                name=c.name,
+                pka=tuple(float(p) for p in c.pka),
+                top_charge=int(c.top_charge),
+                delta_h_kj_mol=None
+                if c.delta_h_kj_mol is None
+                else tuple(float(h) for h in c.delta_h_kj_mol),
+            )
+            for c in stream.custom_systems
+        ),
+        co2_partial_pressure_atm=None if stream.gas is None else float(stream.gas.co2_partial_pressure_atm),
+        measured_ph=None if stream.measured_ph is None else float(stream.measured_ph),
+        balance_on=stream.balance_on,
+    )
+
+
+def _finite(values: Iterable[float | None]) -> bool:
+    return all(v is None or math.isfinite(v) for v in values)
+
+
+def _check_finite(r: EquilibriumResult) -> None:
+    a = r.alkalinity
+    scalars = [
+        r.ph, r.ionic_strength_mol_l, r.buffer_capacity_mmol_l_per_ph,
+        r.charge_balance_residual_mol_l, r.calcite_saturation_index, r.langelier_index,
+        r.conductivity_estimate_us_cm, a.total_meq_l, a.total_mg_l_as_caco3,
+        a.phenolphthalein_meq_l, a.phenolphthalein_mg_l_as_caco3,
+    ]
+    species = [x for s in r.species for x in (s.mol_l, s.activity, s.activity_coefficient)]
+    fractions = [f for s in r.systems for f in (s.total_mol_l, *s.fractions.values())]
+    if not (_finite(scalars) and _finite(species) and _finite(fractions)):
+        raise NonFiniteResult("the solver returned a non-finite number in a result")
+
+
+def to_response(r: EquilibriumResult, service_version: str) -> EquilibriumResponse:
+    """The HTTP response for one solved stream; refuses non-finite numbers."""
+    _check_finite(r)
+    a = r.alkalinity
+    cal = r.calibration
+    return EquilibriumResponse(
+        ph=r.ph,
+        temperature_c=r.temperature_c,
+        ionic_strength_mol_l=r.ionic_strength_mol_l,
+        buffer_capacity_mmol_l_per_ph=r.buffer_capacity_mmol_l_per_ph,
+        alkalinity=Alkalinity(
+            total_meq_l=a.total_meq_l,
+            total_mg_l_as_caco3=a.total_mg_l_as_caco3,
+            total_endpoint_ph=a.total_endpoint_ph,
+            phenolphthalein_meq_l=a.phenolphthalein_meq_l,
+            phenolphthalein_mg_l_as_caco3=a.phenolphthalein_mg_l_as_caco3,
+            phenolphthalein_endpoint_ph=a.phenolphthalein_endpoint_ph,
+        ),
+        species=[
+            Species(
+                name=s.name,
+                charge=s.charge,
+                mol_l=s.mol_l,
+                activity=s.activity,
+                activity_coefficient=s.activity_coefficient,
+            )
+            for s in r.species
+        ],
+        systems=[
+            SystemFractions(
+                name=s.name,
+                total_mol_l=s.total_mol_l,
+                fractions=dict(s.fractions),
+                open_to_gas=s.open_to_gas,
+            )
+            for s in r.systems
+        ],
+        charge_balance_residual_mol_l=r.charge_balance_residual_mol_l,
+        calcite_saturation_index=r.calcite_saturation_index,
+        langelier_index=r.langelier_index,
+        conductivity_estimate_us_cm=r.conductivity_estimate_us_cm,
+        calibration=None
+        if cal is None
+        else Calibration(
+            balance_on=cal.balance_on,
+            added_mol_l=cal.added_mol_l,
+            carbonate_from_alkalinity_mol_l=cal.carbonate_from_alkalinity_mol_l,
+        ),
+        warnings=list(r.warnings),
+        model=ModelInfo(
+            database_version=r.database_version,
+            activity_model=r.activity_model,
+            solver_iterations=r.iterations,
+            service_version=service_version,
+        ),
+    )

@@ -1,0 +1,149 @@
+"""ASGI middleware: request id, access log + metrics, and the request-body size limit.
+
+Pure ASGI (no BaseHTTPMiddleware) so streaming and exceptions pass through unchanged.
+"""
+
+from __future__ import annotations
+
+import logging
+import re
+import time
+import uuid
+from typing import Any
+
+from starlette.datastructures import Headers
+from starlette.exceptions import HTTPException
+from starlette.types import ASGIApp, Message, Receive, Scope, Send
+
+from service.logging import ACCESS_LOGGER
+from service.metrics import Metrics
+from service.problems import REQUEST_ID_SCOPE_KEY, make_problem, problem_response
+
+__all__ = [
+    "BATCH_SIZE_SCOPE_KEY",
+    "REQUEST_ID_HEADER",
+    "BodyLimitMiddleware",
+    "BodyTooLarge",
+    "RequestContextMiddleware",
+    "accept_request_id",
+]
+
+REQUEST_ID_HEADER = "X-Request-ID"
+BATCH_SIZE_SCOPE_KEY = "protolyte.batch_size"
+_ID_RE = re.compile(r"^[A-Za-z0-9._-]{1,64}$")
+_log = logging.getLogger(ACCESS_LOGGER)
+
+
+def accept_request_id(value: str | None) -> str:
+    """The caller's id if it matches ``[A-Za-z0-9._-]{1,64}``, else a fresh UUID4 hex."""
+    if value and _ID_RE.match(value):
+        return value
+    return uuid.uuid4().hex
+
+
+def _route_template(scope: Scope) -> str:
+    route = scope.get("route")
+    path = getattr(route, "path", None)
+    return path if isinstance(path, str) else "unmatched"
+
+
+class RequestContextMiddleware:
+    """Assign the request id, echo it, then log one JSON line and count the request."""
+
+    def __init__(self, app: ASGIApp, metrics: Metrics) -> None:
+        self.app = app
+        self.metrics = metrics
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        start = time.perf_counter()
+        rid = accept_request_id(Headers(scope=scope).get(REQUEST_ID_HEADER))
+        scope[REQUEST_ID_SCOPE_KEY] = rid
+        status = 500
+
+        async def send_with_id(message: Message) -> None:
+            nonlocal status
+            if message["type"] == "http.response.start":
+                status = int(message["status"])
+                headers = [(k, v) for k, v in message.get("headers", []) if k.lower() != b"x-request-id"]
+                headers.append((b"x-request-id", rid.encode("latin-1")))
+                message = {**message, "headers": headers}
+            await send(message)
+
+        try:
+            await self.app(scope, receive, send_with_id)
+        finally:
+            elapsed = time.perf_counter() - start
+            route = _route_template(scope)
+            method = str(scope.get("method", ""))
+            self.metrics.observe_request(route, method, status, elapsed)
+            extra: dict[str, Any] = {
+                "request_id": rid,
+                "method": method,
+                "route": route,
+                "status": status,
+                "duration_seconds": round(elapsed, 6),
+                "batch_size": scope.get(BATCH_SIZE_SCOPE_KEY),
+            }
+            _log.log(logging.ERROR if status >= 500 else logging.INFO, "request", extra=extra)
+
+
+class BodyTooLarge(HTTPException):
+    """The request body passed the configured limit."""
+
+    def __init__(self, limit: int) -> None:
+        super().__init__(
+            413,
+            f"The request body is larger than this server's limit of {limit} bytes "
+            "(PROTOLYTE_BODY_LIMIT_BYTES); send a smaller batch.",
+        )
+
+
+class BodyLimitMiddleware:
+    """Refuse bodies over ``limit`` bytes: by Content-Length at once, else while streaming."""
+
+    def __init__(self, app: ASGIApp, limit: int) -> None:
+        self.app = app
+        self.limit = limit
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        declared = Headers(scope=scope).get("content-length")
+        if declared is not None and declared.isdigit() and int(declared) > self.limit:
+            await self._refuse(scope, receive, send)
+            return
+        received = 0
+        started = False
+
+        async def limited_receive() -> Message:
+            nonlocal received
+            message = await receive()
+            if message["type"] == "http.request":
+                received += len(message.get("body", b""))
+                if received > self.limit:
+                    raise BodyTooLarge(self.limit)
+            return message
+
+        async def tracking_send(message: Message) -> None:
+            nonlocal started
+            if message["type"] == "http.response.start":
+                started = True
+            await send(message)
+
+        try:
+            await self.app(scope, limited_receive, tracking_send)
+        except BodyTooLarge:
+            if started:
+                raise
+            await self._refuse(scope, receive, send)
+
+    async def _refuse(self, scope: Scope, receive: Receive, send: Send) -> None:
+        rid = scope.get(REQUEST_ID_SCOPE_KEY)
+        exc = BodyTooLarge(self.limit)
+        problem = make_problem(413, "content-too-large", str(exc.detail), rid if isinstance(rid, str) else None)
+        response = problem_response(problem, {"Connection": "close"})
+        await response(scope, receive, send)

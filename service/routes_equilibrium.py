@@ -1,0 +1,105 @@
+"""POST /v1/equilibrium and POST /v1/equilibrium/batch."""
+
+from __future__ import annotations
+
+import logging
+
+from fastapi import APIRouter, Depends
+
+from models.results import StreamFailure
+
+from service.checks import structural_errors
+from service.convert import NonFiniteResult, to_response, to_spec
+from service.deps import batch_cap, require_json, require_ready
+from service.openapi import ERROR_RESPONSES
+from service.problems import FieldError, ProblemError, make_problem, summarise
+from service.schemas import (
+    BatchItemError,
+    BatchItemOk,
+    BatchRequest,
+    BatchResponse,
+    EquilibriumResponse,
+    Stream,
+)
+from service.solving import Solver
+from service.state import AppState
+
+__all__ = ["equilibrium_router", "failure_problem"]
+
+_log = logging.getLogger("protolyte.errors")
+
+_SLUG_BY_KIND = {"input": "input-error", "solve": "solve-failed", "unreachable": "unreachable-setpoint"}
+
+
+def failure_problem(failure: StreamFailure, prefix: str) -> BatchItemError:
+    """A batch item's problem object for a core failure (pointer scoped by ``prefix``)."""
+    slug = _SLUG_BY_KIND.get(failure.kind, "input-error")
+    errors = (
+        [FieldError(pointer=prefix + failure.field, detail=failure.message, code=failure.reason or None)]
+        if failure.kind == "input"
+        else None
+    )
+    reason = failure.reason if failure.kind != "input" else None
+    return BatchItemError(ok=False, error=make_problem(422, slug, failure.message, errors=errors, reason=reason))
+
+
+def equilibrium_router(solver: Solver, batch_max_items: int) -> APIRouter:
+    """The equilibrium routes bound to ``solver``."""
+    router = APIRouter(tags=["equilibrium"])
+
+    @router.post(
+        "/v1/equilibrium",
+        operation_id="solve_equilibrium",
+        summary="Equilibrium of one stream",
+        response_model=EquilibriumResponse,
+        responses=ERROR_RESPONSES,
+        dependencies=[Depends(require_json)],
+    )
+    async def solve_equilibrium(stream: Stream, state: AppState = Depends(require_ready)) -> EquilibriumResponse:
+        """pH, speciation, ionic strength, buffer capacity and alkalinity of one stream."""
+        errors = structural_errors(stream)
+        if errors:
+            raise ProblemError(422, summarise(errors), slug="validation-error", errors=errors)
+        result = await solver.solve(to_spec(stream))
+        return to_response(result, state.version)
+
+    @router.post(
+        "/v1/equilibrium/batch",
+        operation_id="solve_equilibrium_batch",
+        summary="Equilibrium of many streams in one call",
+        response_model=BatchResponse,
+        responses=ERROR_RESPONSES,
+        dependencies=[Depends(require_json), Depends(batch_cap(batch_max_items))],
+    )
+    async def solve_equilibrium_batch(
+        batch: BatchRequest, state: AppState = Depends(require_ready)
+    ) -> BatchResponse:
+        """Solve every item with one vectorized core call; an item that fails, fails alone, in place."""
+        slots: list[BatchItemOk | BatchItemError | None] = [None] * len(batch.items)
+        to_solve: list[int] = []
+        for i, stream in enumerate(batch.items):
+            errors = structural_errors(stream, prefix=f"/items/{i}")
+            if errors:
+                problem = make_problem(422, "validation-error", summarise(errors), errors=errors)
+                slots[i] = BatchItemError(ok=False, error=problem)
+                solver.metrics.observe_failure("invalid_input")
+            else:
+                to_solve.append(i)
+        results = await solver.solve_many([to_spec(batch.items[i]) for i in to_solve]) if to_solve else []
+        for i, r in zip(to_solve, results):
+            if isinstance(r, StreamFailure):
+                slots[i] = failure_problem(r, prefix=f"/items/{i}")
+                continue
+            try:
+                slots[i] = BatchItemOk(ok=True, result=to_response(r, state.version))
+            except NonFiniteResult:
+                _log.error("non-finite result from the core", extra={"error_type": "NonFiniteResult"})
+                slots[i] = BatchItemError(
+                    ok=False,
+                    error=make_problem(500, "internal-error", "The solver produced a non-finite number for this item (a defect, logged)."),
+                )
+        out = [s for s in slots if s is not None]
+        failed = sum(1 for s in out if isinstance(s, BatchItemError))
+        return BatchResponse(results=out, succeeded=len(out) - failed, failed=failed)
+
+    return router

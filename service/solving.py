@@ -1,0 +1,90 @@
+"""Run core solves under the time budget and record their metrics.
+
+The solve runs in a worker thread; when it outlives ``budget_s`` the request is
+answered 503 at once and the thread is abandoned (the core's iteration cap bounds it).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Sequence
+from typing import TypeVar
+
+import anyio
+import anyio.to_thread
+
+from models.errors import InputError, ProtolyteError, SolveError, UnreachableSetpoint
+from models.results import EquilibriumResult, StreamFailure
+from models.stream import StreamSpec
+
+from service.core import Core
+from service.metrics import Metrics
+from service.problems import ProblemError
+
+__all__ = ["Solver", "failure_reason"]
+
+T = TypeVar("T")
+
+
+def failure_reason(exc: ProtolyteError) -> str:
+    """The metrics reason code of a core exception."""
+    if isinstance(exc, SolveError):
+        return exc.reason
+    if isinstance(exc, UnreachableSetpoint):
+        return "unreachable_setpoint"
+    if isinstance(exc, InputError):
+        return "invalid_input"
+    return "other"
+
+
+class Solver:
+    """Core calls with a time budget and metrics."""
+
+    def __init__(self, core: Core, metrics: Metrics, budget_s: float) -> None:
+        self.core = core
+        self.metrics = metrics
+        self.budget_s = budget_s
+
+    async def _run(self, fn: Callable[[], T], what: str) -> T:
+        try:
+            with anyio.fail_after(self.budget_s):
+                return await anyio.to_thread.run_sync(fn, abandon_on_cancel=True)
+        except TimeoutError:
+            self.metrics.observe_failure("time_budget")
+            raise ProblemError(
+                503,
+                f"The {what} did not finish within this server's time budget of "
+                f"{self.budget_s:g} s (PROTOLYTE_SOLVE_TIME_BUDGET_S); retry later or send fewer items.",
+                slug="time-budget-exceeded",
+                headers={"Retry-After": "1"},
+            ) from None
+
+    async def solve(self, spec: StreamSpec) -> EquilibriumResult:
+        """Solve one stream; core errors propagate (mapped to 422 by the problem handlers)."""
+
+        def run() -> EquilibriumResult:
+            try:
+                result = self.core.solve(spec)
+            except ProtolyteError as exc:
+                self.metrics.observe_failure(failure_reason(exc))
+                raise
+            self.metrics.observe_solved(result.iterations)
+            return result
+
+        return await self._run(run, "solve")
+
+    async def solve_many(self, specs: Sequence[StreamSpec]) -> list[EquilibriumResult | StreamFailure]:
+        """Solve a batch in one vectorized core call; failures stay in place."""
+
+        def run() -> list[EquilibriumResult | StreamFailure]:
+            results = self.core.solve_many(specs)
+            if len(results) != len(specs):
+                raise RuntimeError(f"core returned {len(results)} results for {len(specs)} streams")
+            for r in results:
+                if isinstance(r, StreamFailure):
+                    self.metrics.observe_failure(r.reason or r.kind)
+                else:
+                    self.metrics.observe_solved(r.iterations)
+            return results
+
+        self.metrics.batch_size.observe(len(specs))
+        return await self._run(run, "batch solve")
