@@ -1,0 +1,54 @@
+"""gunicorn configuration for ``protolyte serve --workers N`` (N > 1).
+
+Workers are ``uvicorn_worker.UvicornWorker``. Prometheus multiprocess mode: the
+directory in ``PROMETHEUS_MULTIPROC_DIR`` (default: a fresh one under the temp dir)
+is wiped and created when the master starts, and a dead worker's files are marked
+in ``child_exit``. SIGTERM stops gracefully (``graceful_timeout``).
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import tempfile
+from pathlib import Path
+from typing import Any
+
+from service.settings import Settings
+
+__all__ = ["bind", "workers", "worker_class", "graceful_timeout", "timeout", "accesslog", "on_starting", "child_exit"]
+
+_settings = Settings.from_env()
+
+bind = [f"{_settings.host}:{_settings.port}"]
+workers = _settings.workers
+worker_class = "uvicorn_worker.UvicornWorker"
+graceful_timeout = 30
+timeout = 60
+keepalive = 5
+accesslog = None
+errorlog = "-"
+loglevel = _settings.log_level.lower()
+
+
+def _prepare_multiproc_dir() -> str:
+    path = os.environ.get("PROMETHEUS_MULTIPROC_DIR") or str(Path(tempfile.gettempdir()) / "protolyte-metrics")
+    shutil.rmtree(path, ignore_errors=True)
+    Path(path).mkdir(parents=True, exist_ok=True)
+    os.environ["PROMETHEUS_MULTIPROC_DIR"] = path
+    return path
+
+
+_prepare_multiproc_dir()
+
+
+def on_starting(server: Any) -> None:
+    """Master start: make sure the metrics directory is empty and exists."""
+    _prepare_multiproc_dir()
+
+
+def child_exit(server: Any, worker: Any) -> None:
+    """A worker died: drop its live-gauge files from the multiprocess directory."""
+    from prometheus_client import multiprocess
+
+    multiprocess.mark_process_dead(worker.pid)
