@@ -9,7 +9,7 @@ import anyio.to_thread
 from fastapi import Request
 
 from service.middleware import BATCH_SIZE_SCOPE_KEY
-from service.problems import ProblemError
+from service.problems import FieldError, ProblemError
 from service.state import AppState
 
 __all__ = ["require_json", "require_ready", "batch_cap"]
@@ -53,7 +53,7 @@ async def require_ready(request: Request) -> AppState:
 
 
 def batch_cap(limit: int) -> Callable[[Request], Awaitable[None]]:
-    """A dependency answering 413 for a batch with more than ``limit`` items (before validating them)."""
+    """A dependency answering 422 (pointer ``/items``) for a batch with more than ``limit`` items (before validating them)."""
 
     async def check(request: Request) -> None:
         try:
@@ -64,11 +64,15 @@ def batch_cap(limit: int) -> Callable[[Request], Awaitable[None]]:
         if isinstance(items, list):
             request.scope[BATCH_SIZE_SCOPE_KEY] = len(items)
             if len(items) > limit:
-                raise ProblemError(
-                    413,
+                detail = (
                     f"The batch has {len(items)} items; this server accepts at most {limit} per request "
-                    "(PROTOLYTE_BATCH_MAX_ITEMS). Split it into smaller batches.",
-                    slug="content-too-large",
+                    "(PROTOLYTE_BATCH_MAX_ITEMS). Split it into smaller batches."
+                )
+                raise ProblemError(
+                    422,
+                    detail,
+                    slug="validation-error",
+                    errors=[FieldError(pointer="/items", detail=detail, code="too_long")],
                 )
 
     return check

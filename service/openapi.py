@@ -24,12 +24,13 @@ _P: dict[str, Any] = {"model": Problem}
 ERROR_RESPONSES: dict[int | str, dict[str, Any]] = {
     400: {**_P, "description": "The body is not valid JSON."},
     401: {**_P, "description": "Missing or wrong `X-API-Key` (only when the server requires a key)."},
-    413: {**_P, "description": "Body over the size limit, or batch over its item cap."},
+    413: {**_P, "description": "Body over the size limit (`PROTOLYTE_BODY_LIMIT_BYTES`)."},
     415: {**_P, "description": "Body not sent as `application/json`."},
     422: {
         **_P,
         "description": (
-            "Invalid request (`errors` names each field by JSON Pointer), or a stream the "
+            "Invalid request (`errors` names each field by JSON Pointer; a batch over its item "
+            "cap names `/items`), or a stream the "
             "solver cannot compute (`input-error`, `solve-failed`, `unreachable-setpoint`)."
         ),
     },

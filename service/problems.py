@@ -13,9 +13,9 @@ Mapping, in one table:
 | missing or wrong ``X-API-Key`` | 401 | ``unauthorized`` |
 | unknown path | 404 | ``not-found`` |
 | method not offered on the path | 405 (+ ``Allow``) | ``method-not-allowed`` |
-| body over the size limit, batch over its cap | 413 | ``content-too-large`` |
+| body over the size limit | 413 | ``content-too-large`` |
 | body not ``application/json`` | 415 | ``unsupported-media-type`` |
-| schema validation | 422 | ``validation-error`` |
+| schema validation, batch over its item cap | 422 | ``validation-error`` |
 | ``models.errors.InputError`` | 422 | ``input-error`` |
 | ``models.errors.SolveError`` | 422 | ``solve-failed`` |
 | ``models.errors.UnreachableSetpoint`` | 422 | ``unreachable-setpoint`` |

@@ -251,7 +251,7 @@ class BatchRequest(BaseModel):
         min_length=1,
         description=(
             "The streams, at least one and at most the server's cap (default 10 000, "
-            "`PROTOLYTE_BATCH_MAX_ITEMS`; more is a 413). A schema-invalid item rejects "
+            "`PROTOLYTE_BATCH_MAX_ITEMS`; more is a 422 naming `/items`). A schema-invalid item rejects "
             "the request with a 422 naming `/items/<i>/…`; an item the solver cannot "
             "compute fails alone, in place."
         ),

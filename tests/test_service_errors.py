@@ -93,10 +93,11 @@ def test_body_over_limit_is_413_when_streamed(make_client: AppFactory) -> None:
     assert_problem(r, 413, "content-too-large")
 
 
-def test_batch_over_cap_is_413(make_client: AppFactory, stream: dict[str, Any]) -> None:
+def test_batch_over_cap_is_422_naming_items(make_client: AppFactory, stream: dict[str, Any]) -> None:
     c = make_client(batch_max_items=2)
-    body = assert_problem(c.post("/v1/equilibrium/batch", json={"items": [stream] * 3}), 413, "content-too-large")
-    assert "at most 2" in body["detail"]
+    body = assert_problem(c.post("/v1/equilibrium/batch", json={"items": [stream] * 3}), 422, "validation-error")
+    assert "at most 2" in body["detail"] and "3 items" in body["detail"]
+    assert pointers(body) == ["/items"]
     assert c.post("/v1/equilibrium/batch", json={"items": [stream] * 2}).status_code == 200
 
 
