@@ -73,6 +73,11 @@ def _serve(args: argparse.Namespace) -> int:
     import uvicorn
 
     from service.logging import configure_logging
+    from service.metrics import multiprocess_dir, prepare_multiprocess_dir
+
+    directory = multiprocess_dir()
+    if directory:  # one process, but the deployment asked for multiprocess files
+        prepare_multiprocess_dir(directory)
 
     configure_logging(settings.log_level)
     uvicorn.run(

@@ -9,11 +9,11 @@ in ``child_exit``. SIGTERM stops gracefully (``graceful_timeout``).
 from __future__ import annotations
 
 import os
-import shutil
 import tempfile
 from pathlib import Path
 from typing import Any
 
+from service.metrics import prepare_multiprocess_dir
 from service.settings import Settings
 
 __all__ = ["bind", "workers", "worker_class", "graceful_timeout", "timeout", "accesslog", "on_starting", "child_exit"]
@@ -33,10 +33,7 @@ loglevel = _settings.log_level.lower()
 
 def _prepare_multiproc_dir() -> str:
     path = os.environ.get("PROMETHEUS_MULTIPROC_DIR") or str(Path(tempfile.gettempdir()) / "protolyte-metrics")
-    shutil.rmtree(path, ignore_errors=True)
-    Path(path).mkdir(parents=True, exist_ok=True)
-    os.environ["PROMETHEUS_MULTIPROC_DIR"] = path
-    return path
+    return prepare_multiprocess_dir(path)
 
 
 _prepare_multiproc_dir()

@@ -21,6 +21,8 @@ from __future__ import annotations
 
 import os
 import re
+import shutil
+from pathlib import Path
 
 from prometheus_client import (
     CONTENT_TYPE_LATEST,
@@ -34,7 +36,7 @@ from prometheus_client import multiprocess
 from prometheus_client.process_collector import ProcessCollector
 from prometheus_client.platform_collector import PlatformCollector
 
-__all__ = ["CONTENT_TYPE_LATEST", "METRIC_NAMES", "Metrics", "multiprocess_dir"]
+__all__ = ["CONTENT_TYPE_LATEST", "METRIC_NAMES", "Metrics", "multiprocess_dir", "prepare_multiprocess_dir"]
 
 METRIC_NAMES: tuple[str, ...] = (
     "protolyte_http_requests_total",
@@ -55,6 +57,14 @@ _REASON_RE = re.compile(r"^[a-z0-9_]{1,40}$")
 def multiprocess_dir() -> str | None:
     """The multiprocess directory when multiprocess mode is on, else None."""
     return os.environ.get("PROMETHEUS_MULTIPROC_DIR") or os.environ.get("prometheus_multiproc_dir")
+
+
+def prepare_multiprocess_dir(path: str) -> str:
+    """Wipe and create the multiprocess directory (at server start, before any worker)."""
+    shutil.rmtree(path, ignore_errors=True)
+    Path(path).mkdir(parents=True, exist_ok=True)
+    os.environ["PROMETHEUS_MULTIPROC_DIR"] = path
+    return path
 
 
 class Metrics:
