@@ -9,7 +9,7 @@ bound every wait, and kill the process group in ``finally``. They are ordinary t
   by either worker, reports the total across both.
 * SIGTERM while a 10 000-stream batch is in flight: the batch still completes with 200,
   under gunicorn (the container's default) and under the single uvicorn process that
-  each Kubernetes pod runs.
+  each Kubernetes pod runs (with PROMETHEUS_MULTIPROC_DIR set, as the ConfigMap does).
 """
 
 from __future__ import annotations
@@ -97,8 +97,6 @@ def running_server(tmp_path: Path, workers: int, **env_extra: str) -> Iterator[t
     env.pop("PROTOLYTE_API_KEY", None)
     # As in the container image: its GUNICORN_CMD_ARGS (graceful and worker timeouts).
     env["GUNICORN_CMD_ARGS"] = _dockerfile_env("GUNICORN_CMD_ARGS")
-    if workers == 1:
-        env.pop("PROMETHEUS_MULTIPROC_DIR")
     cmd = [sys.executable, "-m", "service.cli", "serve", "--workers", str(workers),
            "--host", "127.0.0.1", "--port", str(port)]
     log = open(tmp_path / "server.log", "wb")  # noqa: SIM115
