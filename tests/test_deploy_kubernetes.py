@@ -129,7 +129,7 @@ def test_resources_requests_and_limits() -> None:
 
 def _measured_peak_rss_mib() -> float:
     text = (KDIR.parent / "README.md").read_text()
-    m = re.search(r"peak RSS[^0-9]*([0-9.]+)\s*MiB", text)
+    m = re.search(r"^Measured peak RSS: ([0-9.]+) MiB", text, re.M)
     assert m, "deploy/README.md must state the measured peak RSS in MiB"
     return float(m.group(1))
 
