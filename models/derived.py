@@ -19,7 +19,13 @@ if TYPE_CHECKING:
     from models.equilibrium import Solved
     from models.thermo import ThermoDatabase
 
-__all__ = ["Derived", "compute", "buffer_capacity", "alkalinity_eq_kg", "langelier_ph_s"]
+__all__ = ["TOTAL_ENDPOINT_PH", "PHENOLPHTHALEIN_ENDPOINT_PH", "Derived", "compute", "buffer_capacity", "alkalinity_eq_kg", "langelier_ph_s"]
+
+#: Total alkalinity end point [pH], Standard Methods 2320 B (routine, industrial and
+#: complex samples, or where silicates/phosphates are present).
+TOTAL_ENDPOINT_PH = 4.5
+#: Phenolphthalein end point [pH], Standard Methods 2320 B.
+PHENOLPHTHALEIN_ENDPOINT_PH = 8.3
 
 #: pH step [-] of the central difference for β with activity corrections. Truncation
 #: error ~ δ²·β''/6β, below 1e-7 relative for δ = 1e-4.
@@ -94,8 +100,6 @@ def langelier_ph_s(
 
 def compute(sv: Solved, db: ThermoDatabase) -> Derived:
     """All derived quantities of a solved batch."""
-    from models.equilibrium import PHENOLPHTHALEIN_ENDPOINT_PH, TOTAL_ENDPOINT_PH
-
     p, st, asm = sv.problem, sv.state, sv.assembled
     n = st.ph.shape[0]
     ok = np.isfinite(st.ph)

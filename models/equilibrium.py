@@ -15,6 +15,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from models import derived
+from models.derived import PHENOLPHTHALEIN_ENDPOINT_PH, TOTAL_ENDPOINT_PH
 from models.activity import VALIDITY_LIMIT_MOL_KG
 from models.calibration import close_at_ph
 from models.errors import InputError, SolveError
@@ -43,11 +44,6 @@ from models.thermo import ThermoDatabase, load_database
 
 __all__ = ["solve", "solve_many", "Solved", "solve_arrays", "failure_message"]
 
-#: Total alkalinity end point [pH], Standard Methods 2320 B (routine, industrial and
-#: complex samples, or where silicates/phosphates are present).
-TOTAL_ENDPOINT_PH = 4.5
-#: Phenolphthalein end point [pH], Standard Methods 2320 B.
-PHENOLPHTHALEIN_ENDPOINT_PH = 8.3
 
 
 @dataclass(frozen=True)
