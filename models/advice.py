@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from models.blend import Blend, blend
-from models.dosing import DoseCurve, DosePlan, dose_curve, dosed_spec, plan_doses
+from models.dosing import SETPOINT_TOLERANCE_PH, DoseCurve, DosePlan, dose_curve, dosed_spec, plan_doses
 from models.equilibrium import solve
 from models.errors import InputError
 from models.hazards import Hazard, assess, concentrated_reagent
@@ -153,8 +153,8 @@ def _advice(
     warnings = list(plan.warnings) + list(final.warnings)
     if plan.already_met:
         warnings.append(
-            f"the stream is already at pH {plan.initial_ph:.2f}, on the setpoint side of "
-            f"{setpoint:.2f}: no {r.name} is needed"
+            f"the stream is already at pH {plan.initial_ph:.3f}, within "
+            f"{SETPOINT_TOLERANCE_PH} of the setpoint {setpoint:.3f}: no {r.name} is needed"
         )
     return DoseAdvice(
         reagent=r.name,

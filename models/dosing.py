@@ -248,7 +248,7 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     ph_cap, _, status_cap = _forward(p, cap, dc, di, dt)
     dose, conv = dose_at_ph(p, sp, dc, di, dt, sv.state.ionic_strength)
     lo, hi = (ph0, ph_cap) if base else (ph_cap, ph0)
-    met = (ph0 >= sp) if base else (ph0 <= sp)
+    met = np.abs(ph0 - sp) <= SETPOINT_TOLERANCE_PH
     dose = np.where(met, 0.0, dose)
     ok_dose = np.isfinite(dose) & (dose >= 0) & (dose <= cap * (1 + 1e-9))
     final_ph, _, status_f = _forward(p, np.where(ok_dose, dose, 0.0), dc, di, dt)
@@ -259,11 +259,16 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
             continue
         reach = (float(lo[j]), float(hi[j]))
         if not met[j] and not (ok_dose[j] and conv[j]):
-            what = "raise" if base else "lower"
+            what = "raises" if base else "lowers"
+            wrong = (sp[j] < ph0[j]) if base else (sp[j] > ph0[j])
+            why = (
+                f"{reagent.name} {what} pH: it cannot take this stream from pH {ph0[j]:.2f} to {sp[j]:.2f}"
+                if wrong
+                else f"setpoint {sp[j]:.2f} is beyond what {reagent.name} can reach"
+            )
             out[i] = UnreachableSetpoint(
-                f"{reagent.name} can {what} this stream's pH only within {reach[0]:.2f}–{reach[1]:.2f} "
-                f"(from its own pH {ph0[j]:.2f} to the limit at {cap[j] * 1e3:.4g} mmol/L); "
-                f"setpoint {sp[j]:.2f} is out of reach",
+                f"{why}; reachable with {reagent.name}: pH {reach[0]:.2f} to {reach[1]:.2f} "
+                f"(from the stream's own pH to the limit dose of {cap[j] * 1e3:.4g} mmol/L)",
                 reach[0], reach[1],
             )
             continue
