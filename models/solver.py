@@ -169,7 +169,9 @@ def _newton(p: BalanceProblem, ph0: NDArray, lg, lh, loh) -> tuple[NDArray, NDAr
         with np.errstate(divide="ignore", invalid="ignore"):
             step = -f / df
         new = x + step
-        bad = ~np.isfinite(new) | (new <= lo[idx]) | (new >= hi[idx])
+        # Strict: a Newton step of ~0 from a bracket end lands on that end and is converged,
+        # not a reason to bisect away from the root.
+        bad = ~np.isfinite(new) | (new < lo[idx]) | (new > hi[idx])
         new = np.where(bad, 0.5 * (lo[idx] + hi[idx]), new)
         iters[idx] += 1
         conv = (np.abs(new - x) < PH_TOL) | (hi[idx] - lo[idx] < PH_TOL) | (f == 0)
@@ -201,7 +203,9 @@ def solve_balance(p: BalanceProblem, ph_guess: NDArray | None = None) -> Balance
         ideal = p.activity_code == IDEAL
         step_small = np.abs(ionic_new - ionic) <= I_ATOL + I_RTOL * ionic_new
         converged_i |= ideal | step_small | (ionic_new > 10 * HARD_LIMIT_MOL_KG)
-        ionic = np.where(ideal, ionic, ionic_new)
+        # A converged stream keeps the ionic strength its pH was solved with, so the final
+        # residual is that of the pH actually returned (and later passes cannot move it).
+        ionic = np.where(ideal | converged_i, ionic, ionic_new)
         if converged_i.all():
             break
     lg, lh, loh = gammas(p, ionic)
