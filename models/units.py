@@ -69,8 +69,8 @@ UNIT_CONVENTIONS: dict[str, str] = {
         "per litre to the end point (numerically meq/L)."
     ),
     "umol/L": "Micromoles per litre of the ion or system total.",
-    "mol/kg": "Moles per kilogram of solution of the ion or system total.",
-    "mmol/kg": "Millimoles per kilogram of solution of the ion or system total.",
+    "mol/kg": "Moles per kilogram of water (molality) of the ion or system total.",
+    "mmol/kg": "Millimoles per kilogram of water (molality) of the ion or system total.",
     "mg/L": (
         "Milligrams per litre of the ion itself, or of a system's mass-basis formula "
         "(its most protonated neutral or parent form unless the system's docs say otherwise)."
@@ -116,7 +116,7 @@ _HINTS: dict[str, str] = {
 
 
 def is_per_kg(unit: str) -> bool:
-    """True for the units that give an amount per kilogram of solution (mol/kg, mmol/kg)."""
+    """True for the units that give an amount per kilogram of water (molal) (mol/kg, mmol/kg)."""
     return unit in ("mol/kg", "mmol/kg")
 
 
