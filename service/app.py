@@ -18,6 +18,7 @@ from service.middleware import REQUEST_ID_HEADER, BodyLimitMiddleware, RequestCo
 from service.openapi import build_openapi
 from service.problems import install_problem_handlers
 from service.routes_catalog import catalog_router
+from service.routes_dosing import dosing_router
 from service.routes_equilibrium import equilibrium_router
 from service.routes_ops import ops_router
 from service.settings import Settings
@@ -60,6 +61,8 @@ def create_app(settings: Settings | None = None, core: Core | None = None) -> Fa
         catalog_router(with_reagents=core.load_reagents is not None, reagents_version=version),
         dependencies=auth,
     )
+    if core.dosing is not None:
+        app.include_router(dosing_router(solver, core.dosing), dependencies=auth)
     app.include_router(ops_router(metrics))
 
     if settings.cors_origins:

@@ -18,7 +18,7 @@ from service.schemas import (
     SystemFractions,
 )
 
-__all__ = ["NonFiniteResult", "to_spec", "to_response"]
+__all__ = ["NonFiniteResult", "require_finite", "from_spec", "to_spec", "to_response"]
 
 
 class NonFiniteResult(RuntimeError):
@@ -46,6 +46,37 @@ def to_spec(stream: Stream) -> StreamSpec:
         measured_ph=None if stream.measured_ph is None else float(stream.measured_ph),
         balance_on=stream.balance_on,
     )
+
+
+def from_spec(spec: StreamSpec) -> Stream:
+    """A core stream record as a request-shaped :class:`Stream` (e.g. a blend's mixture)."""
+    return Stream.model_validate(
+        {
+            "temperature_c": float(spec.temperature_c),
+            "activity_model": spec.activity_model,
+            "composition": [{"name": e.name, "value": float(e.value), "unit": e.unit} for e in spec.composition],
+            "custom_systems": [
+                {
+                    "name": c.name,
+                    "pka": [float(p) for p in c.pka],
+                    "top_charge": int(c.top_charge),
+                    "delta_h_kj_mol": None if c.delta_h_kj_mol is None else [float(h) for h in c.delta_h_kj_mol],
+                }
+                for c in spec.custom_systems
+            ],
+            "gas": None
+            if spec.co2_partial_pressure_atm is None
+            else {"co2_partial_pressure_atm": float(spec.co2_partial_pressure_atm)},
+            "measured_ph": spec.measured_ph,
+            "balance_on": spec.balance_on,
+        }
+    )
+
+
+def require_finite(*values: float | None) -> None:
+    """Raise :class:`NonFiniteResult` when a result number is NaN or infinite."""
+    if not _finite(values):
+        raise NonFiniteResult("the core returned a non-finite number in a result")
 
 
 def _finite(values: Iterable[float | None]) -> bool:

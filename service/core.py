@@ -13,7 +13,17 @@ from typing import Any
 from models.results import EquilibriumResult, StreamFailure
 from models.stream import StreamSpec
 
-__all__ = ["Core", "default_core"]
+__all__ = ["Core", "Dosing", "default_core"]
+
+
+@dataclass(frozen=True, slots=True)
+class Dosing:
+    """The core's dosing answers (``models.advice``)."""
+
+    resolve_reagent: Callable[..., Any]
+    advise_dose: Callable[..., Any]
+    advise_curve: Callable[..., Any]
+    advise_blend: Callable[..., Any]
 
 
 @dataclass(frozen=True, slots=True)
@@ -25,6 +35,7 @@ class Core:
     load_database: Callable[[], Any]
     load_reagents: Callable[[], Mapping[str, Any]] | None = None
     reagents_version: Callable[[], str] | None = None
+    dosing: Dosing | None = None
 
 
 def default_core() -> Core:
@@ -39,10 +50,17 @@ def default_core() -> Core:
     else:
         load_reagents = reagents.load_reagents
         reagents_version = reagents.catalogue_version
+    try:
+        from models import advice
+    except ImportError:  # dosing has not landed: /v1/dose, /v1/titration-curve, /v1/blend are absent
+        dosing = None
+    else:
+        dosing = Dosing(advice.resolve_reagent, advice.advise_dose, advice.advise_curve, advice.advise_blend)
     return Core(
         solve=equilibrium.solve,
         solve_many=equilibrium.solve_many,
         load_database=thermo.load_database,
         load_reagents=load_reagents,
         reagents_version=reagents_version,
+        dosing=dosing,
     )

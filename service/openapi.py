@@ -67,6 +67,7 @@ def build_openapi(app: FastAPI, *, api_key_required: bool, batch_max_items: int)
         routes=app.routes,
         tags=[
             {"name": "equilibrium", "description": "Equilibrium pH and speciation of streams."},
+            {"name": "dosing", "description": "Reagent dose to a setpoint, titration curves, blends (advisory)."},
             {"name": "catalogue", "description": "Built-in systems and reagents, with sources."},
         ],
     )

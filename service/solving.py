@@ -44,6 +44,18 @@ class Solver:
         self.metrics = metrics
         self.budget_s = budget_s
 
+    async def call(self, fn: Callable[[], T], what: str) -> T:
+        """Run ``fn`` in a worker thread under the time budget; core errors are counted and re-raised."""
+
+        def run() -> T:
+            try:
+                return fn()
+            except ProtolyteError as exc:
+                self.metrics.observe_failure(failure_reason(exc))
+                raise
+
+        return await self._run(run, what)
+
     async def _run(self, fn: Callable[[], T], what: str) -> T:
         try:
             with anyio.fail_after(self.budget_s):

@@ -45,6 +45,9 @@ def test_operation_ids_are_explicit(committed: dict[str, Any]) -> None:
     assert ids[("/v1/equilibrium/batch", "post")] == "solve_equilibrium_batch"
     assert ids[("/v1/systems", "get")] == "list_systems"
     assert ids[("/v1/reagents", "get")] == "list_reagents"
+    assert ids[("/v1/dose", "post")] == "dose_to_setpoint"
+    assert ids[("/v1/titration-curve", "post")] == "titration_curve"
+    assert ids[("/v1/blend", "post")] == "blend_streams"
     assert len(set(ids.values())) == len(ids)
 
 

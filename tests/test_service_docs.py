@@ -57,5 +57,5 @@ def test_plant_safety_and_placeholder_sections() -> None:
 
 
 def test_every_route_has_a_curl_example() -> None:
-    for route in ("/v1/equilibrium ", "/v1/equilibrium/batch", "/v1/systems", "/v1/reagents", "/healthz", "/readyz", "/metrics"):
+    for route in ("/v1/equilibrium ", "/v1/equilibrium/batch", "/v1/systems", "/v1/reagents", "/v1/dose", "/v1/titration-curve", "/v1/blend", "/healthz", "/readyz", "/metrics"):
         assert f"http://127.0.0.1:8000{route.strip()}" in README, route

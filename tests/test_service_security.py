@@ -31,6 +31,8 @@ def test_missing_or_wrong_key_is_401(keyed: Any, stream: dict[str, Any], headers
         keyed.post("/v1/equilibrium/batch", json={"items": [stream]}, headers=headers),
         keyed.get("/v1/systems", headers=headers),
         keyed.get("/v1/reagents", headers=headers),
+        keyed.post("/v1/dose", json={"stream": stream, "reagent": {"name": "NaOH"}, "setpoint_ph": 7.0}, headers=headers),
+        keyed.post("/v1/blend", json={"streams": [{"flow_m3_h": 1.0, "stream": stream}]}, headers=headers),
     ):
         assert r.status_code == 401, r.text
         assert r.headers["content-type"] == "application/problem+json"
