@@ -144,6 +144,17 @@ def _requests_by_pid(metrics_dir: Path, pids: set[int], route: str) -> dict[int,
     return out
 
 
+def _batches_observed(metrics_dir: Path) -> float:
+    """protolyte_batch_size_count summed over every process's histogram file."""
+    files = [str(p) for p in metrics_dir.glob("histogram_*.db")]
+    total = 0.0
+    for metric in MultiProcessCollector.merge(files, accumulate=True) if files else []:
+        for s in metric.samples:
+            if s.name == "protolyte_batch_size_count":
+                total += s.value
+    return total
+
+
 def _exposition_total(text: str, **labels: str) -> float:
     total = 0.0
     for fam in text_string_to_metric_families(text):
@@ -239,7 +250,7 @@ def _sigterm_during_batch(tmp_path: Path, workers: int, items: int) -> None:
     body = json.dumps({"items": [_example_stream()] * items}).encode()
     # A generous per-request budget: this test is about shutdown, not the budget.
     with running_server(tmp_path, workers=workers, PROTOLYTE_SOLVE_TIME_BUDGET_S="60",
-                        PROTOLYTE_BATCH_MAX_ITEMS=str(items)) as (proc, port, _):
+                        PROTOLYTE_BATCH_MAX_ITEMS=str(items)) as (proc, port, metrics_dir):
         result: dict[str, Any] = {}
 
         def send() -> None:
@@ -252,7 +263,13 @@ def _sigterm_during_batch(tmp_path: Path, workers: int, items: int) -> None:
 
         client = threading.Thread(target=send)
         client.start()
-        time.sleep(1.5)
+        # In flight: the server has parsed the batch and starts solving it (the service
+        # observes protolyte_batch_size right before the solve).
+        deadline = time.monotonic() + 30
+        while _batches_observed(metrics_dir) < 1:
+            assert client.is_alive(), f"the batch finished before it was seen in flight: {result}"
+            assert time.monotonic() < deadline, "the batch was never seen in flight"
+            time.sleep(0.02)
         assert client.is_alive(), f"the batch finished before SIGTERM could be sent: {result}"
         proc.send_signal(signal.SIGTERM)
         t_term = time.monotonic()
