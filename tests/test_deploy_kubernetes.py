@@ -243,3 +243,20 @@ def test_pdb_keeps_one_of_at_least_two() -> None:
     assert res["HorizontalPodAutoscaler"]["spec"]["minReplicas"] >= 2
     # Rolling updates never drop below the current count.
     assert res["Deployment"]["spec"]["strategy"]["rollingUpdate"]["maxUnavailable"] == 0
+
+
+def test_readme_sizing_figures_are_the_recorded_measurement() -> None:
+    import json  # noqa: PLC0415
+
+    raw = json.loads((KDIR.parent / "sizing-measurement.json").read_text())
+    assert round(raw["peak_rss_mib"]) == round(_measured_peak_rss_mib())
+    text = (KDIR.parent / "README.md").read_text()
+    m = re.search(r"^Measured peak RSS: [0-9.]+ MiB; CPU per single-stream request: ([0-9.]+) ms", text, re.M)
+    assert m and float(m.group(1)) == round(raw["single"]["cpu_ms_per_request"], 1)
+    assert raw["single"]["statuses"] == {"200": raw["single"]["requests"]}
+    assert raw["batch"]["statuses"] == {"200": raw["batch"]["requests"]}
+    assert raw["batch"]["batch_size"] == int(_resources()["ConfigMap"]["data"]["PROTOLYTE_BATCH_MAX_ITEMS"])
+    # The CPU request serves a sensible rate: 20-500 single-stream requests/s per pod.
+    cpu_request = _quantity(_container()["resources"]["requests"]["cpu"])
+    per_pod_rps = cpu_request / (raw["single"]["cpu_ms_per_request"] / 1000)
+    assert 20 <= per_pod_rps <= 500
