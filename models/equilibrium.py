@@ -28,6 +28,7 @@ from models.results import (
     SystemSpeciation,
 )
 from models.solver import (
+    NOT_CONVERGED,
     OK,
     PH_MAX,
     PH_MIN,
@@ -152,9 +153,13 @@ def solve_arrays(parsed: list[ParsedStream], db: ThermoDatabase) -> Solved:
     )
 
 
+#: Calibration error text of a numerical (not an input) failure.
+CALIBRATION_NOT_CONVERGED = "calibration to the measured pH did not converge"
+
+
 def _calibration_error(s: ParsedStream, added: float, carb: float, converged: bool) -> str:
     if not converged:
-        return "calibration to the measured pH did not converge"
+        return CALIBRATION_NOT_CONVERGED
     if s.alkalinity_eq_kg is not None and not (carb >= 0.0):
         return (
             "the measured alkalinity is lower than what the other bases and water already "
@@ -205,6 +210,9 @@ def solve(spec: StreamSpec, db: ThermoDatabase | None = None) -> EquilibriumResu
 def _result(j: int, sv: Solved, ex: derived.Derived, db: ThermoDatabase) -> EquilibriumResult | StreamFailure:
     st = sv.state
     parsed_warn: list[str] = sv.warnings[j] + list(ex.warnings[j])
+    if sv.calibration_error[j] == CALIBRATION_NOT_CONVERGED:
+        # The numerics failed for a valid input: a solve failure, not an input error.
+        return StreamFailure("solve", STATUS_MESSAGES[NOT_CONVERGED], failure_message(NOT_CONVERGED))
     if sv.calibration_error[j]:
         field = "/composition" if "alkalinity" in sv.calibration_error[j] else "/balance_on"
         return StreamFailure("input", "calibration_impossible", sv.calibration_error[j], field)

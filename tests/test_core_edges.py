@@ -120,4 +120,10 @@ def test_a_calibration_that_does_not_converge_is_never_returned(monkeypatch) -> 
                       measured_ph=7.5, balance_on="Na+")
     (res,) = solve_many([spec])
     assert not isinstance(res, EquilibriumResult)
+    # A numerical failure for a valid input is a solve failure, not an input error (results.py:
+    # kind "input" is InputError, "solve" is SolveError); before the fix it came back as
+    # ("input", "calibration_impossible", field "/balance_on").
     assert isinstance(res, StreamFailure)
+    assert (res.kind, res.reason) == ("solve", "not_converged")
+    with pytest.raises(SolveError):
+        solve(spec)
