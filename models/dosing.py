@@ -247,7 +247,9 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     cap = _ceiling(reagent, db, parsed)
     ph_cap, _, status_cap = _forward(p, cap, dc, di, dt)
     dose, conv = dose_at_ph(p, sp, dc, di, dt, sv.state.ionic_strength)
-    lo, hi = (ph0, ph_cap) if base else (ph_cap, ph0)
+    # The reagent moves the pH from the stream's own pH toward the pH at the limit dose:
+    # usually up for a base, but a weak one (NaHCO3) lowers an alkaline stream.
+    lo, hi = np.minimum(ph0, ph_cap), np.maximum(ph0, ph_cap)
     met = np.abs(ph0 - sp) <= SETPOINT_TOLERANCE_PH
     dose = np.where(met, 0.0, dose)
     ok_dose = np.isfinite(dose) & (dose >= 0) & (dose <= cap * (1 + 1e-9))
@@ -259,8 +261,9 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
             continue
         reach = (float(lo[j]), float(hi[j]))
         if not met[j] and not (ok_dose[j] and conv[j]):
-            what = "raises" if base else "lowers"
-            wrong = (sp[j] < ph0[j]) if base else (sp[j] > ph0[j])
+            raises = ph_cap[j] > ph0[j] if ph_cap[j] != ph0[j] else base
+            what = "raises" if raises else "lowers"
+            wrong = (sp[j] < ph0[j]) if raises else (sp[j] > ph0[j])
             why = (
                 f"{reagent.name} {what} pH: it cannot take this stream from pH {ph0[j]:.2f} to {sp[j]:.2f}"
                 if wrong
@@ -268,7 +271,8 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
             )
             out[i] = UnreachableSetpoint(
                 f"{why}; reachable with {reagent.name}: pH {reach[0]:.2f} to {reach[1]:.2f} "
-                f"(from the stream's own pH to the limit dose of {cap[j] * 1e3:.4g} mmol/L)",
+                f"(between the stream's own pH {ph0[j]:.2f} and pH {ph_cap[j]:.2f} at the limit "
+                f"dose of {cap[j] * 1e3:.4g} mmol/L)",
                 reach[0], reach[1],
             )
             continue
