@@ -198,11 +198,7 @@ def _conductivity(sv: Solved, db: ThermoDatabase) -> list[float | None]:
         lam0 = db.limiting_conductivity(name)
         if lam0:
             kappa = kappa + term(lam0, db.strong_ions[name].charge, asm.strong_molal[:, k] * rho)
-    for j in range(n):
-        for k, sd in enumerate(asm.slots[j]):
-            for q, sp in enumerate(sd.species):
-                lam0 = db.limiting_conductivity(sp)
-                if lam0 and sd.charges[q]:
-                    lam = max(lam0 - (0.5 * b2 * abs(sd.charges[q]) + b1 * abs(sd.charges[q]) * lam0) * corr[j], 0.0)
-                    kappa[j] += lam * abs(sd.charges[q]) * m[j, k, q] * rho[j]
-    return [float(v) * 1e3 for v in kappa]
+    az = np.abs(p.charge)
+    lam = np.maximum(asm.lambda0 - (0.5 * b2 * az + b1 * az * asm.lambda0) * corr[:, None, None], 0.0)
+    kappa = kappa + np.einsum("nkp,nkp->n", lam * az, m) * rho
+    return (kappa * 1e3).tolist()

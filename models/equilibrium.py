@@ -192,8 +192,9 @@ def solve_many(
     if parsed:
         solved = solve_arrays(parsed, db)
         extras = derived.compute(solved, db)
+        table = _Tables.of(solved, extras)
         for j, i in enumerate(where):
-            out[i] = _result(j, solved, extras, db)
+            out[i] = _result(j, solved, extras, table, db)
     return [o for o in out if o is not None]
 
 
@@ -207,7 +208,44 @@ def solve(spec: StreamSpec, db: ThermoDatabase | None = None) -> EquilibriumResu
     return res
 
 
-def _result(j: int, sv: Solved, ex: derived.Derived, db: ThermoDatabase) -> EquilibriumResult | StreamFailure:
+@dataclass(frozen=True)
+class _Tables:
+    """Whole-batch arrays turned into Python lists once (cheap per-stream access)."""
+
+    m: list            # (N, K, P) system species [mol/L]
+    g: list            # (N, K, P) activity coefficients
+    frac: list         # (N, K, P) fractions
+    tot: list          # (N, K) totals [mol/L]
+    h: list            # (N, 4) m(H+), γ(H+), m(OH-), γ(OH-) [mol/L]
+    strong: list       # (N, S) strong ions [mol/L]
+    strong_g: list     # (N, S)
+    scalars: list      # (N, 8) pH, I, β, residual, T, ρ, iterations, status
+    is_open: list      # (N, K)
+
+    @staticmethod
+    def of(sv: Solved, ex: derived.Derived) -> _Tables:
+        st, p, rho = sv.state, sv.problem, sv.assembled.density_kg_l
+        m, m_h, m_oh = species_state(p, st.ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
+        tot = m.sum(axis=-1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            frac = np.where(tot[..., None] > 0, m / tot[..., None], 0.0)
+        r = rho[:, None, None]
+        h = np.stack([m_h * rho, 10**st.log_gamma_h, m_oh * rho, 10**st.log_gamma_oh], axis=1)
+        return _Tables(
+            (m * r).tolist(), (10.0**st.log_gamma_species).tolist(), frac.tolist(),
+            (tot * rho[:, None]).tolist(), h.tolist(),
+            (sv.assembled.strong_molal * rho[:, None]).tolist(), (10.0**ex.strong_log_gamma).tolist(),
+            np.stack(
+                [st.ph, st.ionic_strength * rho, ex.beta_mol_kg * rho * 1e3, st.residual * rho,
+                 sv.assembled.temperature_c, rho, st.iterations, st.status], axis=1,
+            ).tolist(),
+            p.is_open.tolist(),
+        )
+
+
+def _result(
+    j: int, sv: Solved, ex: derived.Derived, tb: _Tables, db: ThermoDatabase
+) -> EquilibriumResult | StreamFailure:
     st = sv.state
     parsed_warn: list[str] = sv.warnings[j] + list(ex.warnings[j])
     if sv.calibration_error[j] == CALIBRATION_NOT_CONVERGED:
@@ -216,33 +254,33 @@ def _result(j: int, sv: Solved, ex: derived.Derived, db: ThermoDatabase) -> Equi
     if sv.calibration_error[j]:
         field = "/composition" if "alkalinity" in sv.calibration_error[j] else "/balance_on"
         return StreamFailure("input", "calibration_impossible", sv.calibration_error[j], field)
-    status = int(st.status[j])
+    ph, ionic_l, beta_l, resid_l, temp, rho, iters, status_f = tb.scalars[j]
+    status = int(status_f)
     if status != OK:
         return StreamFailure("solve", STATUS_MESSAGES[status], failure_message(status))
     asm = sv.assembled
     p = sv.problem
-    rho = float(asm.density_kg_l[j])
-    ph = float(st.ph[j])
-    lg = st.log_gamma_species[j]
-    m, m_h, m_oh = species_state(p.take(np.array([j])), st.ph[j : j + 1], lg[None], st.log_gamma_h[j : j + 1], st.log_gamma_oh[j : j + 1])
-    m = m[0]
+    mh, gh, moh, goh = tb.h[j]
     species: list[SpeciesAmount] = [
-        _amount("H+", 1, float(m_h[0]), float(st.log_gamma_h[j]), rho),
-        _amount("OH-", -1, float(m_oh[0]), float(st.log_gamma_oh[j]), rho),
+        SpeciesAmount("H+", 1, mh, mh * gh / rho, gh),
+        SpeciesAmount("OH-", -1, moh, moh * goh / rho, goh),
     ]
+    strong_row, strong_g = tb.strong[j], tb.strong_g[j]
     for k, name in enumerate(asm.strong_names):
-        mk = float(asm.strong_molal[j, k])
-        if mk > 0.0:
-            species.append(_amount(name, db.strong_ions[name].charge, mk, float(ex.strong_log_gamma[j, k]), rho))
+        c = strong_row[k]
+        if c > 0.0:
+            g = strong_g[k]
+            species.append(SpeciesAmount(name, db.strong_ions[name].charge, c, c * g / rho, g))
     systems: list[SystemSpeciation] = []
+    m_row, g_row, f_row, t_row = tb.m[j], tb.g[j], tb.frac[j], tb.tot[j]
     for k, sd in enumerate(asm.slots[j]):
-        ns = sd.n_steps + 1
-        tot = float(m[k, :ns].sum())
-        fr = {sp: (float(m[k, q] / tot) if tot > 0 else float(q == 0)) for q, sp in enumerate(sd.species)}
-        systems.append(SystemSpeciation(sd.name, tot * rho, fr, bool(p.is_open[j, k])))
+        mk, gk, fk = m_row[k], g_row[k], f_row[k]
+        total = t_row[k]
+        fr = dict(zip(sd.species, fk)) if total > 0 else {sp: float(q == 0) for q, sp in enumerate(sd.species)}
+        systems.append(SystemSpeciation(sd.name, total, fr, tb.is_open[j][k]))
         for q, sp in enumerate(sd.species):
-            species.append(_amount(sp, sd.charges[q], float(m[k, q]), float(lg[k, q]), rho))
-    ionic = float(st.ionic_strength[j])
+            species.append(SpeciesAmount(sp, sd.charges[q], mk[q], mk[q] * gk[q] / rho, gk[q]))
+    ionic = ionic_l / rho
     model = _model_name(int(p.activity_code[j]))
     limit = VALIDITY_LIMIT_MOL_KG[model]
     if ionic > limit:
@@ -260,15 +298,15 @@ def _result(j: int, sv: Solved, ex: derived.Derived, db: ThermoDatabase) -> Equi
         )
     return EquilibriumResult(
         ph=ph,
-        temperature_c=float(asm.temperature_c[j]),
+        temperature_c=temp,
         activity_model=model,
-        ionic_strength_mol_l=ionic * rho,
-        buffer_capacity_mmol_l_per_ph=float(ex.beta_mol_kg[j]) * rho * 1e3,
+        ionic_strength_mol_l=ionic_l,
+        buffer_capacity_mmol_l_per_ph=beta_l,
         alkalinity=ex.alkalinity[j],
         species=tuple(species),
         systems=tuple(systems),
-        charge_balance_residual_mol_l=float(st.residual[j]) * rho,
-        iterations=int(st.iterations[j]),
+        charge_balance_residual_mol_l=resid_l,
+        iterations=int(iters),
         database_version=db.version,
         calcite_saturation_index=ex.calcite_si[j],
         langelier_index=ex.langelier[j],
@@ -286,8 +324,3 @@ def _model_name(code: int) -> str:
     from models.stream import ACTIVITY_MODELS
 
     return ACTIVITY_MODELS[code]
-
-
-def _amount(name: str, charge: int, molal: float, log_g: float, rho: float) -> SpeciesAmount:
-    g = 10.0**log_g
-    return SpeciesAmount(name, int(charge), molal * rho, molal * g, g)

@@ -14,6 +14,7 @@ under 1 % below about 0.1 mol/L of dissolved salts.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import NDArray
@@ -48,6 +49,20 @@ class ParsedStream:
     measured_ph: float | None
     balance_on: str | None
     warnings: list[str] = field(default_factory=list)
+
+
+@lru_cache(maxsize=4096)
+def _factor(
+    unit: str, kind: str, formula: str, charge: int, atoms: tuple[tuple[str, int], ...], name: str
+) -> float:
+    """Unit factor to mol/L (or mol/kg), cached: a batch repeats the same few analytes."""
+    return units.conversion_factor(
+        unit, kind=kind, formula=formula, charge=charge, as_atoms=dict(atoms), name=name
+    )
+
+
+def _amount(value: float, unit: str, kind: str, formula: str, charge: int, atoms: dict, name: str) -> float:
+    return value * _factor(unit, kind, formula, charge, tuple(sorted(atoms.items())), name)
 
 
 def _system_for(name: str, customs: dict[str, SystemData], db: ThermoDatabase) -> SystemData | None:
@@ -96,20 +111,13 @@ def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
         system = _system_for(name, customs, db)
         try:
             if ion is not None:
-                amount = units.to_mol_per_l(
-                    value, entry.unit, kind="strong_ion", formula=ion.formula,
-                    charge=ion.charge, as_atoms={}, name=name,
-                )
+                amount = _amount(value, entry.unit, "strong_ion", ion.formula, ion.charge, {}, name)
             elif system is not None:
-                amount = units.to_mol_per_l(
-                    value, entry.unit, kind="system", formula=system.mass_formula,
-                    charge=0, as_atoms=system.as_atoms, name=name,
+                amount = _amount(
+                    value, entry.unit, "system", system.mass_formula, 0, system.as_atoms, name
                 )
             elif name == ALKALINITY:
-                amount = units.to_mol_per_l(
-                    value, entry.unit, kind="alkalinity", formula="CaCO3", charge=0,
-                    as_atoms={}, name=name,
-                )
+                amount = _amount(value, entry.unit, "alkalinity", "CaCO3", 0, {}, name)
             else:
                 raise InputError(
                     f"unknown species or system {name!r}: use a strong ion, a built-in system "
@@ -203,6 +211,7 @@ class Assembled:
     strong_names: tuple[str, ...]
     strong_molal: NDArray[np.float64]        # (N, n_strong)
     slots: list[list[SystemData]]            # per stream
+    lambda0: NDArray[np.float64]             # (N, K, P) limiting conductivity, 0 if none
 
 
 def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
@@ -223,6 +232,7 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
     cum[..., 0] = 0.0
     charge = np.zeros((n, k_max, p_max))
     size = np.zeros((n, k_max, p_max))
+    lam0 = np.zeros((n, k_max, p_max))
     total = np.zeros((n, k_max))
     is_open = np.zeros((n, k_max), dtype=bool)
     open_neutral = np.zeros((n, k_max))
@@ -236,6 +246,7 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
             ns = s.n_steps + 1
             charge[i, k, :ns] = s.charges
             size[i, k, :ns] = s.ion_size_angstrom
+            lam0[i, k, :ns] = _lambda0(s, db)
             total[i, k] = p.totals[k]
         if p.open_slot is not None:
             is_open[i, p.open_slot] = True
@@ -265,4 +276,18 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
         charge=charge,
         ion_size=size,
     )
-    return Assembled(problem, temp, rho, strong_names, strong_m, [p.systems for p in parsed])
+    return Assembled(problem, temp, rho, strong_names, strong_m, [p.systems for p in parsed], lam0)
+
+
+_LAMBDA0: dict[tuple[int, int], list[float]] = {}
+
+
+def _lambda0(s: SystemData, db: ThermoDatabase) -> list[float]:
+    key = (id(s), id(db))
+    if key not in _LAMBDA0 and s.builtin:
+        _LAMBDA0[key] = _lambda0_of(s, db)
+    return _LAMBDA0[key] if s.builtin else _lambda0_of(s, db)
+
+
+def _lambda0_of(s: SystemData, db: ThermoDatabase) -> list[float]:
+    return [db.limiting_conductivity(sp) or 0.0 if z else 0.0 for sp, z in zip(s.species, s.charges)]
