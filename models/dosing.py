@@ -255,6 +255,14 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     ok_dose = np.isfinite(dose) & (dose >= 0) & (dose <= cap * (1 + 1e-9))
     final_ph, _, status_f = _forward(p, np.where(ok_dose, dose, 0.0), dc, di, dt)
     gain = _gain(p, sp, dc, di, dt, sv.state.ionic_strength)
+    # The pH move a ±1 % reagent-flow error really gives, by forward solves: near an
+    # equivalence point the linear gain × 1 % overstates it (pH cannot move 20 units)
+    # or, just before the inflection, understates it.
+    d_ok = np.where(ok_dose, dose, 0.0)
+    swing = np.zeros_like(d_ok)
+    for f in (1.0 - HIGH_GAIN_RULE[0], 1.0 + HIGH_GAIN_RULE[0]):
+        swing = np.maximum(swing, np.abs(_forward(p, d_ok * f, dc, di, dt)[0] - final_ph))
+    high = (d_ok > 0) & (swing > HIGH_GAIN_RULE[1])
     for j, i in enumerate(where):
         if status0[j] != OK:
             out[i] = SolveError("the stream itself does not solve: " + str(status0[j]), "stream_not_solvable")
@@ -282,10 +290,10 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
         d = float(dose[j])
         warnings: list[str] = []
         g = float(gain[j])
-        if d > 0 and abs(g) * HIGH_GAIN_RULE[0] * d > HIGH_GAIN_RULE[1]:
+        if high[j]:
             warnings.append(
                 f"process gain is high: a 1 % error in reagent flow moves the pH by "
-                f"{abs(g) * 0.01 * d:.2f} at the setpoint (rule of thumb of the trade: above "
+                f"{swing[j]:.2f} at the setpoint (rule of thumb of the trade: above "
                 f"{HIGH_GAIN_RULE[1]} pH, single-stage control is impractical; use two stages "
                 "or equalise the stream first)"
             )
