@@ -22,7 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from models.activity import HARD_LIMIT_MOL_KG, IDEAL, log_gamma
+from models.activity import DAVIES, DAVIES_LINEAR_TERM, HARD_LIMIT_MOL_KG, IDEAL, log_gamma
 
 __all__ = [
     "PH_MIN",
@@ -150,69 +150,151 @@ def ionic_strength_of(p: BalanceProblem, m: NDArray, m_h: NDArray, m_oh: NDArray
     return 0.5 * (p.strong_ionic + m_h + m_oh + (p.charge * p.charge * m).sum(axis=(1, 2)))
 
 
-def _newton(p: BalanceProblem, ph0: NDArray, lg, lh, loh) -> tuple[NDArray, NDArray, NDArray]:
-    """Safeguarded Newton on [PH_MIN, PH_MAX] at fixed γ; only unconverged streams iterate."""
-    n = ph0.shape[0]
-    ph = ph0.copy()
-    lo = np.full(n, PH_MIN)
-    hi = np.full(n, PH_MAX)
-    iters = np.zeros(n, dtype=int)
-    done = np.zeros(n, dtype=bool)
-    idx = np.arange(n)
-    for _ in range(MAX_NEWTON):
-        sub = p if idx.size == n else p.take(idx)
-        x = ph[idx]
-        f, df, *_ = balance(sub, x, lg[idx], lh[idx], loh[idx])
-        pos = f > 0
-        lo[idx] = np.where(pos, x, lo[idx])
-        hi[idx] = np.where(pos, hi[idx], x)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            step = -f / df
-        new = x + step
-        # Strict: a Newton step of ~0 from a bracket end lands on that end and is converged,
-        # not a reason to bisect away from the root.
-        bad = ~np.isfinite(new) | (new < lo[idx]) | (new > hi[idx])
-        new = np.where(bad, 0.5 * (lo[idx] + hi[idx]), new)
-        iters[idx] += 1
-        conv = (np.abs(new - x) < PH_TOL) | (hi[idx] - lo[idx] < PH_TOL) | (f == 0)
-        ph[idx] = np.where(f == 0, x, new)
-        done[idx[conv]] = True
-        idx = idx[~conv]
-        if idx.size == 0:
-            break
-    return ph, iters, done
+class _Kernel:
+    """The charge balance of a (sub)batch, set up for repeated evaluation.
+
+    Evaluates G = ln P − ln N, where P and N are the positive and negative charge
+    (strong ions, H+/OH−, system species): G has the root of F = P − N but is close to
+    linear in pH over wide ranges, so Newton's method on G needs few steps from a
+    neutral start. Per-slot sums use moments of the proton count j (Σw, Σw·j, Σw·j²)
+    with the charge z = top − j, so each evaluation costs one exp and a few reductions
+    over the (N, K, P) arrays.
+    """
+
+    def __init__(self, p: BalanceProblem) -> None:
+        self.p = p
+        steps = np.arange(p.cum_pk.shape[-1], dtype=float)
+        self.steps, self.steps_sq, self.steps_ln10 = steps, steps * steps, steps * LN10
+        self.cum_ln10 = p.cum_pk * LN10
+        self.top = p.charge[..., 0]
+        self.z2 = p.charge * p.charge
+        self.zpos = np.maximum(p.charge, 0.0)
+        self.zposj = self.zpos * steps
+        self.any_pos = bool(self.zpos.any())
+        self.any_open = bool(p.is_open.any())
+        self.strong_pos = np.maximum(p.strong_charge, 0.0)
+        self.strong_neg = np.maximum(-p.strong_charge, 0.0)
+        codes = np.unique(p.activity_code)
+        self.code = int(codes[0]) if codes.size == 1 else None
+
+    def take(self, idx: NDArray[np.int_]) -> _Kernel:
+        k = object.__new__(_Kernel)
+        k.p = self.p.take(idx)
+        k.steps, k.steps_sq, k.steps_ln10 = self.steps, self.steps_sq, self.steps_ln10
+        for name in ("cum_ln10", "top", "z2", "zpos", "zposj", "strong_pos", "strong_neg"):
+            setattr(k, name, getattr(self, name)[idx])
+        k.any_pos = bool(k.zpos.any())
+        k.any_open = bool(k.p.is_open.any())
+        k.code = self.code
+        return k
+
+    def log_gammas(self, ionic: NDArray) -> tuple[NDArray | None, NDArray, NDArray]:
+        """log10 γ of system species (None when ideal), of H+ and of OH−."""
+        if self.code == IDEAL:
+            zero = np.zeros_like(ionic)
+            return None, zero, zero
+        if self.code == DAVIES:
+            sqrt_i = np.sqrt(ionic)
+            g = -self.p.a_dh * (sqrt_i / (1.0 + sqrt_i) - DAVIES_LINEAR_TERM * ionic)
+            return self.z2 * g[:, None, None], g, g
+        return gammas(self.p, ionic)
+
+    def evaluate(self, ph: NDArray, lg: NDArray | None, lh: NDArray, loh: NDArray):
+        """G, dG/dpH and the ionic strength [mol/kg] implied at ``ph``."""
+        p = self.p
+        logw = np.subtract(np.multiply(ph[:, None, None], self.steps_ln10), self.cum_ln10)
+        if lg is not None:
+            logw -= lg * LN10
+        # Exponents stay within about ±150 for pH −1…15 and pK −5…25 (custom-system
+        # limits), so no max-shift is needed here; models.fractions keeps it.
+        w = np.exp(logw, out=logw)
+        m0 = np.einsum("nkp->nk", w)
+        m1 = np.einsum("nkp,p->nk", w, self.steps)
+        m2 = np.einsum("nkp,p->nk", w, self.steps_sq)
+        t = self.top
+        if self.any_open:
+            s = np.where(p.is_open, p.open_neutral / w[..., 0], p.total / m0)
+            jbar = np.where(p.is_open, 0.0, m1 / m0)
+        else:
+            s = p.total / m0
+            jbar = m1 / m0
+        sz = t * m0 - m1
+        szj = t * m1 - m2
+        sz2 = t * sz - szj
+        if self.any_pos:
+            szp = np.einsum("nkp,nkp->nk", w, self.zpos)
+            szpj = np.einsum("nkp,nkp->nk", w, self.zposj)
+        else:
+            szp = szpj = np.zeros_like(sz)
+        szn, sznj = szp - sz, szpj - szj
+        m_h = np.exp(-LN10 * (ph + lh))
+        m_oh = np.exp(LN10 * (ph - p.pkw - loh))
+        pos = self.strong_pos + m_h + (s * szp).sum(axis=1)
+        neg = self.strong_neg + m_oh + (s * szn).sum(axis=1)
+        dpos = LN10 * (-m_h + (s * (szpj - szp * jbar)).sum(axis=1))
+        dneg = LN10 * (m_oh + (s * (sznj - szn * jbar)).sum(axis=1))
+        g = np.log(pos) - np.log(neg)
+        dg = dpos / pos - dneg / neg
+        ionic = 0.5 * (p.strong_ionic + m_h + m_oh + (s * sz2).sum(axis=1))
+        return g, dg, ionic
 
 
 def solve_balance(p: BalanceProblem, ph_guess: NDArray | None = None) -> BalanceState:
-    """Solve every stream's charge balance with self-consistent ionic strength."""
+    """Solve every stream's charge balance with self-consistent ionic strength.
+
+    One loop does both: a bracketed Newton step on G(pH) with the activity coefficients
+    of the current ionic strength, then the ionic strength of the new state. The bracket
+    is reopened while the ionic strength still moves (it was valid for the old γ).
+    Converged streams leave the working set, which is compacted as it shrinks.
+    """
     n = p.n_streams
+    full = _Kernel(p)
     ph = np.full(n, 7.0) if ph_guess is None else np.clip(ph_guess, PH_MIN + 0.01, PH_MAX - 0.01)
-    ionic = 0.5 * p.strong_ionic + 0.5 * (np.abs(p.charge) ** 2 * p.total[..., None]).max(axis=-1).sum(axis=1)
-    ionic = np.where(p.activity_code == IDEAL, 0.0, ionic)
-    total_iters = np.zeros(n, dtype=int)
-    converged_i = np.zeros(n, dtype=bool)
-    newton_ok = np.ones(n, dtype=bool)
-    for _ in range(MAX_OUTER):
-        lg, lh, loh = gammas(p, ionic)
-        ph_new, iters, ok = _newton(p, ph, lg, lh, loh)
-        total_iters += np.where(converged_i, 0, iters)
-        newton_ok &= ok | converged_i
-        ph = np.where(converged_i, ph, ph_new)
-        m, m_h, m_oh = species_state(p, ph, lg, lh, loh)
-        ionic_new = ionic_strength_of(p, m, m_h, m_oh)
-        ideal = p.activity_code == IDEAL
-        step_small = np.abs(ionic_new - ionic) <= I_ATOL + I_RTOL * ionic_new
-        converged_i |= ideal | step_small | (ionic_new > 10 * HARD_LIMIT_MOL_KG)
-        # A converged stream keeps the ionic strength its pH was solved with, so the final
-        # residual is that of the pH actually returned (and later passes cannot move it).
-        ionic = np.where(ideal | converged_i, ionic, ionic_new)
-        if converged_i.all():
+    lo, hi = np.full(n, PH_MIN), np.full(n, PH_MAX)
+    ideal = p.activity_code == IDEAL
+    ionic = np.where(ideal, 0.0, 0.5 * p.strong_ionic)
+    iters = np.zeros(n, dtype=int)
+    done = np.zeros(n, dtype=bool)
+    rows = np.arange(n)
+    k = full
+    for _ in range(MAX_NEWTON):
+        act = ~done[rows]
+        if act.sum() < 0.6 * rows.size:
+            rows = rows[act]
+            k = full.take(rows)
+            act = np.ones(rows.size, dtype=bool)
+        x, cur = ph[rows], ionic[rows]
+        lg, lh, loh = k.log_gammas(cur)
+        g, dg, new_i = k.evaluate(x, lg, lh, loh)
+        above = g > 0
+        lo_r = np.where(above, x, lo[rows])
+        hi_r = np.where(above, hi[rows], x)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step = -g / dg
+        newton = x + step
+        # Strict: a Newton step of ~0 from a bracket end is converged, not a reason to bisect.
+        bad = ~np.isfinite(newton) | (newton < lo_r) | (newton > hi_r)
+        nxt = np.where(bad, 0.5 * (lo_r + hi_r), newton)
+        i_ok = ideal[rows] | (np.abs(new_i - cur) <= I_ATOL + I_RTOL * new_i)
+        small = np.isfinite(step) & (np.abs(step) < PH_TOL)
+        conv = act & i_ok & (small | (hi_r - lo_r < PH_TOL))
+        lo_r = np.where(i_ok, lo_r, np.maximum(PH_MIN, np.minimum(lo_r, nxt) - 0.5))
+        hi_r = np.where(i_ok, hi_r, np.minimum(PH_MAX, np.maximum(hi_r, nxt) + 0.5))
+        lo[rows] = np.where(act, lo_r, lo[rows])
+        hi[rows] = np.where(act, hi_r, hi[rows])
+        ph[rows] = np.where(act, np.where(conv, np.where(small & ~bad, newton, x), nxt), ph[rows])
+        # A converged stream keeps the ionic strength its pH was solved with, so the
+        # reported residual is that of the pH returned.
+        ionic[rows] = np.where(act & ~conv, new_i, ionic[rows])
+        iters[rows] += act
+        done[rows[conv]] = True
+        if done.all():
             break
     lg, lh, loh = gammas(p, ionic)
     f, _, scale, m, m_h, m_oh = balance(p, ph, lg, lh, loh)
     ionic_actual = ionic_strength_of(p, m, m_h, m_oh)
     status = np.full(n, OK)
-    status[~(newton_ok & converged_i)] = NOT_CONVERGED
+    status[~done] = NOT_CONVERGED
     status[(ph <= PH_MIN + 1e-6) & (f < 0)] = BELOW_RANGE
     status[(ph >= PH_MAX - 1e-6) & (f > 0)] = ABOVE_RANGE
     status[(status == OK) & (ph <= PH_MIN + 1e-6)] = BELOW_RANGE
@@ -226,7 +308,7 @@ def solve_balance(p: BalanceProblem, ph_guess: NDArray | None = None) -> Balance
         log_gamma_oh=loh,
         residual=f,
         scale=scale,
-        iterations=total_iters,
+        iterations=iters,
         status=status,
     )
 
