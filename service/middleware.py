@@ -62,6 +62,15 @@ class RequestContextMiddleware:
         rid = accept_request_id(Headers(scope=scope).get(REQUEST_ID_HEADER))
         scope[REQUEST_ID_SCOPE_KEY] = rid
         status = 500
+        recorded = False
+
+        def record() -> float:
+            nonlocal recorded
+            elapsed = time.perf_counter() - start
+            if not recorded:  # counted before the last byte leaves, so a client that got
+                recorded = True  # its answer always finds it counted
+                self.metrics.observe_request(_route_template(scope), str(scope.get("method", "")), status, elapsed)
+            return elapsed
 
         async def send_with_id(message: Message) -> None:
             nonlocal status
@@ -70,19 +79,18 @@ class RequestContextMiddleware:
                 headers = [(k, v) for k, v in message.get("headers", []) if k.lower() != b"x-request-id"]
                 headers.append((b"x-request-id", rid.encode("latin-1")))
                 message = {**message, "headers": headers}
+            elif message["type"] == "http.response.body" and not message.get("more_body", False):
+                record()
             await send(message)
 
         try:
             await self.app(scope, receive, send_with_id)
         finally:
-            elapsed = time.perf_counter() - start
-            route = _route_template(scope)
-            method = str(scope.get("method", ""))
-            self.metrics.observe_request(route, method, status, elapsed)
+            elapsed = record() if not recorded else time.perf_counter() - start
             extra: dict[str, Any] = {
                 "request_id": rid,
-                "method": method,
-                "route": route,
+                "method": str(scope.get("method", "")),
+                "route": _route_template(scope),
                 "status": status,
                 "duration_seconds": round(elapsed, 6),
                 "batch_size": scope.get(BATCH_SIZE_SCOPE_KEY),
