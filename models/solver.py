@@ -200,7 +200,7 @@ class _Kernel:
         return gammas(self.p, ionic)
 
     def evaluate(self, ph: NDArray, lg: NDArray | None, lh: NDArray, loh: NDArray):
-        """G, dG/dpH and the ionic strength [mol/kg] implied at ``ph``."""
+        """G, dG/dpH, the ionic strength [mol/kg] implied at ``ph``, and P, N [eq/kg]."""
         p = self.p
         logw = np.subtract(np.multiply(ph[:, None, None], self.steps_ln10), self.cum_ln10)
         if lg is not None:
@@ -236,7 +236,7 @@ class _Kernel:
         g = np.log(pos) - np.log(neg)
         dg = dpos / pos - dneg / neg
         ionic = 0.5 * (p.strong_ionic + m_h + m_oh + (s * sz2).sum(axis=1))
-        return g, dg, ionic
+        return g, dg, ionic, pos, neg
 
 
 def solve_balance(p: BalanceProblem, ph_guess: NDArray | None = None) -> BalanceState:
@@ -265,7 +265,7 @@ def solve_balance(p: BalanceProblem, ph_guess: NDArray | None = None) -> Balance
             act = np.ones(rows.size, dtype=bool)
         x, cur = ph[rows], ionic[rows]
         lg, lh, loh = k.log_gammas(cur)
-        g, dg, new_i = k.evaluate(x, lg, lh, loh)
+        g, dg, new_i, _, _ = k.evaluate(x, lg, lh, loh)
         above = g > 0
         lo_r = np.where(above, x, lo[rows])
         hi_r = np.where(above, hi[rows], x)
@@ -290,9 +290,11 @@ def solve_balance(p: BalanceProblem, ph_guess: NDArray | None = None) -> Balance
         done[rows[conv]] = True
         if done.all():
             break
-    lg, lh, loh = gammas(p, ionic)
-    f, _, scale, m, m_h, m_oh = balance(p, ph, lg, lh, loh)
-    ionic_actual = ionic_strength_of(p, m, m_h, m_oh)
+    lg, lh, loh = full.log_gammas(ionic)
+    _, _, ionic_actual, pos, neg = full.evaluate(ph, lg, lh, loh)
+    f, scale = pos - neg, pos + neg
+    if lg is None:
+        lg = np.zeros(p.charge.shape)
     status = np.full(n, OK)
     status[~done] = NOT_CONVERGED
     status[(ph <= PH_MIN + 1e-6) & (f < 0)] = BELOW_RANGE
