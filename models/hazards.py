@@ -53,12 +53,15 @@ def _gas_flags(res: EquilibriumResult, db: ThermoDatabase) -> list[Hazard]:
         frac = sysres.fractions[cfg["neutral_species"]]
         molal = next(s.mol_l for s in res.species if s.name == cfg["neutral_species"])
         ppm = float(molal / db.henry[gas].kh(res.temperature_c)) * 1e6
+        value, unit = ppm, "ppm"
         if ppm >= cfg["danger_ppm"]:
             sev, thr, src = "danger", cfg["danger_ppm"], cfg["danger_source"]
         elif ppm >= cfg["warning_ppm"]:
             sev, thr, src = "warning", cfg["warning_ppm"], cfg["warning_source"]
         elif frac >= cfg["fraction_warning"]:
+            # flagged on the neutral fraction: state the fraction against its threshold
             sev, thr, src = "warning", cfg["fraction_warning"], cfg["fraction_source"]
+            value, unit = float(frac), "fraction"
         else:
             sev, thr, src = "info", cfg["warning_ppm"], cfg["warning_source"]
         out.append(
@@ -67,9 +70,9 @@ def _gas_flags(res: EquilibriumResult, db: ThermoDatabase) -> list[Hazard]:
                 sev,
                 f"{frac:.1%} of {cfg['system']} is {cfg['neutral_species']} at pH {res.ph:.2f}; "
                 f"equilibrium {gas} over the liquid ≈ {ppm:.3g} ppm",
-                ppm,
+                value,
                 thr,
-                "ppm",
+                unit,
                 src + f"; Henry constant: {db.henry[gas].source}",
             )
         )
