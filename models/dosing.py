@@ -187,21 +187,29 @@ def _forward(p: BalanceProblem, d: NDArray, dc, di, dt) -> tuple[NDArray, NDArra
     return st.ph, st.ionic_strength, st.status
 
 
-def _ceiling(reagent: Reagent, db: ThermoDatabase, parsed: list[ParsedStream]) -> NDArray:
+def _ceiling(
+    reagent: Reagent, db: ThermoDatabase, parsed: list[ParsedStream]
+) -> tuple[NDArray, list[InputError | None]]:
     """Largest dose [mol/L] per stream: what a slurry can dissolve (solubility table of
-    the reagent), CO2 saturation at 1 atm (Henry constant), else MAX_DOSE_MOL_L."""
+    the reagent), CO2 saturation at 1 atm (Henry constant), else MAX_DOSE_MOL_L; and per
+    stream the InputError of a temperature outside the reagent's solubility table."""
     cap = np.full(len(parsed), MAX_DOSE_MOL_L)
+    errors: list[InputError | None] = [None] * len(parsed)
     for i, ps in enumerate(parsed):
         limit_mol_kg = None
         if reagent.form == "gas" and reagent.formula == "CO2":
             limit_mol_kg = float(10.0 ** db.log_kh_co2(ps.temperature_c))  # at 1 atm
         else:
-            sol = reagent.solubility_g_per_100g_h2o(ps.temperature_c)
+            try:
+                sol = reagent.solubility_g_per_100g_h2o(ps.temperature_c)
+            except InputError as exc:
+                errors[i] = InputError(exc.message, "/temperature_c")
+                continue
             if sol is not None:
                 limit_mol_kg = sol * 10.0 / reagent.molar_mass_g_mol
         if limit_mol_kg is not None:
             cap[i] = min(cap[i], limit_mol_kg * ps.density_kg_l)
-    return cap
+    return cap, errors
 
 
 def plan_doses(
@@ -244,7 +252,7 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     ph0 = sv.state.ph
     status0 = sv.state.status
     base = reagent.kind == "base"
-    cap = _ceiling(reagent, db, parsed)
+    cap, cap_errors = _ceiling(reagent, db, parsed)
     ph_cap, _, status_cap = _forward(p, cap, dc, di, dt)
     dose, conv = dose_at_ph(p, sp, dc, di, dt, sv.state.ionic_strength)
     # The reagent moves the pH from the stream's own pH toward the pH at the limit dose:
@@ -264,6 +272,9 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
         swing = np.maximum(swing, np.abs(_forward(p, d_ok * f, dc, di, dt)[0] - final_ph))
     high = (d_ok > 0) & (swing > HIGH_GAIN_RULE[1])
     for j, i in enumerate(where):
+        if cap_errors[j] is not None:
+            out[i] = cap_errors[j]
+            continue
         if status0[j] != OK:
             out[i] = SolveError("the stream itself does not solve: " + str(status0[j]), "stream_not_solvable")
             continue

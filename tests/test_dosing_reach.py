@@ -21,7 +21,7 @@ from scipy.optimize import brentq
 from models.advice import advise_dose, resolve_reagent
 from models.dosing import SETPOINT_TOLERANCE_PH, plan_doses
 from models.equilibrium import solve
-from models.errors import UnreachableSetpoint
+from models.errors import InputError, UnreachableSetpoint
 from models.reagents import load_reagents
 from models.stream import Entry, StreamSpec
 
@@ -233,3 +233,40 @@ def test_advice_for_a_met_setpoint_says_no_reagent_is_needed() -> None:
     assert adv.amounts["product_l_h"] == 0.0
     assert any("no NaOH is needed" in w for w in adv.warnings)
     assert math.isfinite(adv.final_ph)
+
+
+# --- the reagent's solubility table and the batch ---------------------------------------
+
+
+def test_a_temperature_outside_the_reagents_solubility_table_fails_that_stream_only() -> None:
+    # regression: the InputError of one stream's temperature escaped plan_doses and took the
+    # whole batch down; Mg(OH)2 solubility is tabulated at 25 °C only (reagents.toml)
+    acid = _spec(("Cl-", 0.1))
+    warm = StreamSpec(acid.composition, temperature_c=30.0, activity_model="ideal")
+    at_25, at_30 = plan_doses([acid, warm], load_reagents()["Mg(OH)2"], 4.5)
+    assert not isinstance(at_25, Exception), at_25
+    assert at_25.final_ph == pytest.approx(4.5, abs=SETPOINT_TOLERANCE_PH)
+    assert isinstance(at_30, InputError)
+    assert at_30.field == "/temperature_c"
+
+
+def test_dose_advice_names_the_stream_temperature_outside_the_solubility_table() -> None:
+    warm = StreamSpec((Entry("Cl-", 0.1, "mmol/L"),), temperature_c=30.0)
+    with pytest.raises(InputError) as err:
+        advise_dose(warm, resolve_reagent("Mg(OH)2"), 4.5)
+    assert err.value.field == "/stream/temperature_c"
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="open: the slurry ceiling caps the dose at the hydroxide's solubility in pure "
+    "water, but in an acidic stream the hydroxide dissolves by reaction (CaCl2 is very "
+    "soluble); the ceiling belongs on the final state (saturation index of M(OH)2)",
+)
+def test_lime_neutralises_a_strong_acid_beyond_its_pure_water_solubility() -> None:
+    # textbook stoichiometry: Ca(OH)2 + 2 HCl → CaCl2 + 2 H2O; 0.1 M HCl to pH 7 takes
+    # ≈ 50 mmol/L of lime, all of it dissolved as CaCl2
+    acid = StreamSpec((Entry("Cl-", 100.0, "mmol/L"),), activity_model="davies")
+    plan = _one(acid, "Ca(OH)2", 7.0)
+    assert not isinstance(plan, Exception), plan
+    assert plan.dose_mol_l == pytest.approx(0.05, rel=1e-3)
