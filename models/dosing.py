@@ -26,7 +26,9 @@ from models.equilibrium import solve_arrays
 from models.errors import InputError, SolveError, UnreachableSetpoint
 from models.reagents import Reagent
 from models.prepare import Assembled, ParsedStream, parse_stream
+from models.activity import IDEAL
 from models.solver import (
+    BalanceKernel,
     I_ATOL,
     I_RTOL,
     MAX_OUTER,
@@ -160,23 +162,26 @@ def dose_at_ph(
     p: BalanceProblem, ph: NDArray, dc: NDArray, di: NDArray, dt: NDArray, ionic0: NDArray
 ) -> tuple[NDArray, NDArray]:
     """Dose [mol/L] that puts each stream exactly at ``ph``; NaN where the reagent
-    cannot move the balance that way (ΔF of the wrong sign). Returns (dose, converged)."""
+    cannot move the balance that way (ΔF = 0). Returns (dose, converged).
+
+    At fixed γ: F(pH; d) = F(pH; 0) + d·(Δstrong + Σ_k Δtotal_k·z̄_k(pH)); the ionic
+    strength of the dosed stream, I(0) + d·(Δ(Σmz²)/2 + Σ_k Δtotal_k·<z²>_k/2), is
+    iterated to self-consistency.
+    """
+    kern = BalanceKernel(p)
     ionic = ionic0.copy()
     d = np.zeros_like(ph)
     conv = np.zeros(ph.shape, dtype=bool)
     for _ in range(MAX_OUTER):
-        lg, lh, loh = gammas(p, ionic)
-        f0, *_ = balance(p, ph, lg, lh, loh)
-        m1, _, _ = species_state(_shift(p, np.ones_like(ph), dc * 0, di * 0, dt), ph, lg, lh, loh)
-        m0, _, _ = species_state(p, ph, lg, lh, loh)
-        df = dc + ((m1 - m0) * p.charge).sum(axis=(1, 2))
+        lg, lh, loh = kern.log_gammas(ionic)
+        _, _, i0, pos, neg, zbar, z2bar = kern.evaluate(ph, lg, lh, loh, slot_means=True)
+        df = dc + (dt * zbar).sum(axis=1)
         with np.errstate(divide="ignore", invalid="ignore"):
-            d = np.where(df != 0, -f0 / df, np.nan)
-        shifted = _shift(p, np.nan_to_num(d), dc, di, dt)
-        m, m_h, m_oh = species_state(shifted, ph, lg, lh, loh)
-        new = ionic_strength_of(shifted, m, m_h, m_oh)
-        conv = np.abs(new - ionic) <= I_ATOL + I_RTOL * new
-        ionic = np.maximum(new, 0.0)
+            d = np.where(df != 0, -(pos - neg) / df, np.nan)
+        dd = np.nan_to_num(d)
+        new = np.maximum(i0 + 0.5 * dd * (di + (dt * z2bar).sum(axis=1)), 0.0)
+        conv = (p.activity_code == IDEAL) | (np.abs(new - ionic) <= I_ATOL + I_RTOL * new)
+        ionic = new
         if conv.all():
             break
     return d, conv

@@ -36,6 +36,7 @@ __all__ = [
     "gammas",
     "balance",
     "ionic_strength_of",
+    "BalanceKernel",
 ]
 
 LN10 = float(np.log(10.0))
@@ -150,7 +151,7 @@ def ionic_strength_of(p: BalanceProblem, m: NDArray, m_h: NDArray, m_oh: NDArray
     return 0.5 * (p.strong_ionic + m_h + m_oh + (p.charge * p.charge * m).sum(axis=(1, 2)))
 
 
-class _Kernel:
+class BalanceKernel:
     """The charge balance of a (sub)batch, set up for repeated evaluation.
 
     Evaluates G = ln P − ln N, where P and N are the positive and negative charge
@@ -177,8 +178,8 @@ class _Kernel:
         codes = np.unique(p.activity_code)
         self.code = int(codes[0]) if codes.size == 1 else None
 
-    def take(self, idx: NDArray[np.int_]) -> _Kernel:
-        k = object.__new__(_Kernel)
+    def take(self, idx: NDArray[np.int_]) -> BalanceKernel:
+        k = object.__new__(BalanceKernel)
         k.p = self.p.take(idx)
         k.steps, k.steps_sq, k.steps_ln10 = self.steps, self.steps_sq, self.steps_ln10
         for name in ("cum_ln10", "top", "z2", "zpos", "zposj", "strong_pos", "strong_neg"):
@@ -199,8 +200,11 @@ class _Kernel:
             return self.z2 * g[:, None, None], g, g
         return gammas(self.p, ionic)
 
-    def evaluate(self, ph: NDArray, lg: NDArray | None, lh: NDArray, loh: NDArray):
-        """G, dG/dpH, the ionic strength [mol/kg] implied at ``ph``, and P, N [eq/kg]."""
+    def evaluate(
+        self, ph: NDArray, lg: NDArray | None, lh: NDArray, loh: NDArray, *, slot_means: bool = False
+    ):
+        """G, dG/dpH, the ionic strength [mol/kg] implied at ``ph``, and P, N [eq/kg];
+        with ``slot_means`` also each slot's mean charge z̄ and mean z² (N, K)."""
         p = self.p
         logw = np.subtract(np.multiply(ph[:, None, None], self.steps_ln10), self.cum_ln10)
         if lg is not None:
@@ -236,6 +240,8 @@ class _Kernel:
         g = np.log(pos) - np.log(neg)
         dg = dpos / pos - dneg / neg
         ionic = 0.5 * (p.strong_ionic + m_h + m_oh + (s * sz2).sum(axis=1))
+        if slot_means:
+            return g, dg, ionic, pos, neg, sz / m0, sz2 / m0
         return g, dg, ionic, pos, neg
 
 
@@ -248,7 +254,7 @@ def solve_balance(p: BalanceProblem, ph_guess: NDArray | None = None) -> Balance
     Converged streams leave the working set, which is compacted as it shrinks.
     """
     n = p.n_streams
-    full = _Kernel(p)
+    full = BalanceKernel(p)
     ph = np.full(n, 7.0) if ph_guess is None else np.clip(ph_guess, PH_MIN + 0.01, PH_MAX - 0.01)
     lo, hi = np.full(n, PH_MIN), np.full(n, PH_MAX)
     ideal = p.activity_code == IDEAL
