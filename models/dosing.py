@@ -273,8 +273,15 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     # or, just before the inflection, understates it.
     d_ok = np.where(ok_dose, dose, 0.0)
     swing = np.zeros_like(d_ok)
-    for f in (1.0 - HIGH_GAIN_RULE[0], 1.0 + HIGH_GAIN_RULE[0]):
-        swing = np.maximum(swing, np.abs(_forward(p, d_ok * f, dc, di, dt)[0] - final_ph))
+    # Only where the linear estimate comes within a factor 10 of the threshold (the curve
+    # can bend up sharply just before an inflection, so not closer than that).
+    linear = np.abs(np.nan_to_num(gain)) * HIGH_GAIN_RULE[0] * d_ok
+    near = np.nonzero((d_ok > 0) & (linear > HIGH_GAIN_RULE[1] / 10))[0]
+    if near.size:
+        sub = p.take(near)
+        for f in (1.0 - HIGH_GAIN_RULE[0], 1.0 + HIGH_GAIN_RULE[0]):
+            moved = _forward(sub, d_ok[near] * f, dc[near], di[near], dt[near])[0]
+            swing[near] = np.maximum(swing[near], np.abs(moved - final_ph[near]))
     high = (d_ok > 0) & (swing > HIGH_GAIN_RULE[1])
     for j, i in enumerate(where):
         if cap_errors[j] is not None:
