@@ -237,25 +237,27 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
     is_open = np.zeros((n, k_max), dtype=bool)
     open_neutral = np.zeros((n, k_max))
     # Evaluate each system's pK at all temperatures that use it in one call.
-    users: dict[int, list[tuple[int, int]]] = {}
+    users: dict[int, tuple[list[int], list[int]]] = {}
     by_id: dict[int, SystemData] = {}
     for i, p in enumerate(parsed):
         for k, s in enumerate(p.systems):
-            users.setdefault(id(s), []).append((i, k))
-            by_id[id(s)] = s
-            ns = s.n_steps + 1
-            charge[i, k, :ns] = s.charges
-            size[i, k, :ns] = s.ion_size_angstrom
-            lam0[i, k, :ns] = _lambda0(s, db)
+            key = id(s)
+            if key not in users:
+                users[key] = ([], [])
+                by_id[key] = s
+            users[key][0].append(i)
+            users[key][1].append(k)
             total[i, k] = p.totals[k]
         if p.open_slot is not None:
             is_open[i, p.open_slot] = True
-    for key, places in users.items():
+    for key, (rows_i, slots_k) in users.items():
         s = by_id[key]
-        ii = np.array([i for i, _ in places])
-        kk = np.array([k for _, k in places])
-        pk = np.atleast_2d(s.pka(temp[ii]))
-        cum[ii, kk, : s.n_steps + 1] = cumulative_pk(pk)
+        ii, kk = np.array(rows_i), np.array(slots_k)
+        ns = s.n_steps + 1
+        charge[ii, kk, :ns] = s.charges
+        size[ii, kk, :ns] = s.ion_size_angstrom
+        lam0[ii, kk, :ns] = _lambda0(s, db)
+        cum[ii, kk, :ns] = cumulative_pk(np.atleast_2d(s.pka(temp[ii])))
     if is_open.any():
         rows, slots_ = np.nonzero(is_open)
         pco2 = np.array([parsed[i].co2_partial_pressure_atm for i in rows], dtype=float)
