@@ -119,36 +119,46 @@ def species_state(
     p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, loh: NDArray
 ) -> tuple[NDArray, NDArray, NDArray]:
     """Molalities of system species (N, K, P), H+ and OH− [mol/kg] at ``ph``."""
-    logw = ph[:, None, None] * np.arange(p.cum_pk.shape[-1]) - p.cum_pk - lg
-    top = np.max(logw, axis=-1, keepdims=True)
-    w = np.exp(LN10 * (logw - top))
-    closed = p.total[..., None] * w / np.sum(w, axis=-1, keepdims=True)
+    logw = np.multiply(ph[:, None, None], np.arange(p.cum_pk.shape[-1]) * LN10) - p.cum_pk * LN10
+    logw -= lg * LN10
     if np.any(p.is_open):
-        rel = np.exp(LN10 * (logw - logw[..., :1]))
+        rel = np.exp(logw - logw[..., :1])
         opened = p.open_neutral[..., None] * rel
-        closed = np.where(p.is_open[..., None], opened, closed)
-    m_h = 10.0 ** (-ph - lh)
-    m_oh = 10.0 ** (ph - p.pkw - loh)
-    return closed, m_h, m_oh
+    logw -= _max_last(logw)[..., None]
+    w = np.exp(logw, out=logw)
+    out = w * (p.total / np.einsum("nkp->nk", w))[..., None]
+    if np.any(p.is_open):
+        out = np.where(p.is_open[..., None], opened, out)
+    m_h = np.exp(-LN10 * (ph + lh))
+    m_oh = np.exp(LN10 * (ph - p.pkw - loh))
+    return out, m_h, m_oh
+
+
+def _max_last(a: NDArray) -> NDArray:
+    """Maximum over a short last axis (elementwise, faster than a reduction here)."""
+    top = a[..., 0].copy()
+    for j in range(1, a.shape[-1]):
+        np.maximum(top, a[..., j], out=top)
+    return top
 
 
 def balance(p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, loh: NDArray):
     """F [eq/kg], dF/dpH [eq/kg], and Σ|terms| for scaling, at fixed γ."""
     m, m_h, m_oh = species_state(p, ph, lg, lh, loh)
     zm = p.charge * m
-    f = p.strong_charge + m_h - m_oh + zm.sum(axis=(1, 2))
+    f = p.strong_charge + m_h - m_oh + np.einsum("nkp->n", zm)
     # d m_j/dpH = ln10 m_j (j − mean j) for closed systems, ln10 m_j j for open ones.
     steps = np.arange(p.cum_pk.shape[-1], dtype=float)
-    tot = np.maximum(m.sum(axis=-1, keepdims=True), 1e-300)
-    mean_j = np.where(p.is_open[..., None], 0.0, (m * steps).sum(axis=-1, keepdims=True) / tot)
-    dsys = (zm * (steps - mean_j)).sum(axis=(1, 2))
+    tot = np.maximum(np.einsum("nkp->nk", m), 1e-300)
+    mean_j = np.where(p.is_open, 0.0, np.einsum("nkp,p->nk", m, steps) / tot)
+    dsys = np.einsum("nkp,p->n", zm, steps) - np.einsum("nk,nk->n", np.einsum("nkp->nk", zm), mean_j)
     df = -LN10 * (m_h + m_oh) + LN10 * dsys
-    scale = np.abs(p.strong_charge) + m_h + m_oh + np.abs(zm).sum(axis=(1, 2))
+    scale = np.abs(p.strong_charge) + m_h + m_oh + np.einsum("nkp->n", np.abs(zm))
     return f, df, scale, m, m_h, m_oh
 
 
 def ionic_strength_of(p: BalanceProblem, m: NDArray, m_h: NDArray, m_oh: NDArray) -> NDArray:
-    return 0.5 * (p.strong_ionic + m_h + m_oh + (p.charge * p.charge * m).sum(axis=(1, 2)))
+    return 0.5 * (p.strong_ionic + m_h + m_oh + np.einsum("nkp,nkp,nkp->n", p.charge, p.charge, m))
 
 
 class BalanceKernel:
