@@ -259,6 +259,12 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     base = reagent.kind == "base"
     cap, cap_errors = _ceiling(reagent, db, parsed)
     ph_cap, _, status_cap = _forward(p, cap, dc, di, dt)
+    for _ in range(40):  # a limit dose the model cannot solve (I past every activity
+        bad = status_cap != OK  # model) says nothing: back off to one it can
+        if not bad.any():
+            break
+        cap = np.where(bad, cap / 2.0, cap)
+        ph_cap, _, status_cap = _forward(p, cap, dc, di, dt)
     dose, conv = dose_at_ph(p, sp, dc, di, dt, sv.state.ionic_strength)
     # The reagent moves the pH from the stream's own pH toward the pH at the limit dose:
     # usually up for a base, but a weak one (NaHCO3) lowers an alkaline stream.

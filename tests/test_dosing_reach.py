@@ -15,11 +15,12 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
 import pytest
 from scipy.optimize import brentq
 
 from models.advice import advise_dose, resolve_reagent
-from models.dosing import SETPOINT_TOLERANCE_PH, plan_doses
+from models.dosing import SETPOINT_TOLERANCE_PH, dose_curve, plan_doses
 from models.equilibrium import solve
 from models.errors import InputError, UnreachableSetpoint
 from models.reagents import load_reagents
@@ -270,3 +271,20 @@ def test_lime_neutralises_a_strong_acid_beyond_its_pure_water_solubility() -> No
     plan = _one(acid, "Ca(OH)2", 7.0)
     assert not isinstance(plan, Exception), plan
     assert plan.dose_mol_l == pytest.approx(0.05, rel=1e-3)
+
+
+def test_the_reach_limit_is_a_dose_the_model_can_solve() -> None:
+    # regression (found by tests/test_dosing_properties): 1 mol/L soda ash is I ≈ 3 mol/kg,
+    # past every activity model, and its failed solve (pH 11.76) was stated as the reach —
+    # while pH 11.35 inside that "range" was refused. The limit now backs off to a dose the
+    # model solves, and the stated range holds at that dose.
+    spec = StreamSpec(
+        (Entry("phosphate", 1.5, "mmol/L"), Entry("Na+", 5.9, "mmol/L")), 70.0, "davies"
+    )
+    res = _one(spec, "Na2CO3", 11.35)
+    assert isinstance(res, UnreachableSetpoint)
+    assert not res.reachable_min_ph < 11.35 < res.reachable_max_ph
+    limit_mmol_l = float(res.message.split("limit dose of ")[1].split(" mmol/L")[0])
+    assert limit_mmol_l < 1000.0
+    at_limit = dose_curve(spec, load_reagents()["Na2CO3"], np.array([limit_mmol_l * 1e-3]))
+    assert at_limit.ph[0] == pytest.approx(res.reachable_max_ph, abs=0.01)
