@@ -221,6 +221,7 @@ class _Tables:
     strong_g: list     # (N, S)
     scalars: list      # (N, 8) pH, I, β, residual, T, ρ, iterations, status
     is_open: list      # (N, K)
+    strong_charges: tuple[int, ...]
 
     @staticmethod
     def of(sv: Solved, ex: derived.Derived) -> _Tables:
@@ -240,6 +241,7 @@ class _Tables:
                  sv.assembled.temperature_c, rho, st.iterations, st.status], axis=1,
             ).tolist(),
             p.is_open.tolist(),
+            tuple(load_database().strong_ions[s].charge for s in sv.assembled.strong_names),
         )
 
 
@@ -266,20 +268,20 @@ def _result(
         SpeciesAmount("OH-", -1, moh, moh * goh / rho, goh),
     ]
     strong_row, strong_g = tb.strong[j], tb.strong_g[j]
-    for k, name in enumerate(asm.strong_names):
-        c = strong_row[k]
+    for name, z, c, g in zip(asm.strong_names, tb.strong_charges, strong_row, strong_g):
         if c > 0.0:
-            g = strong_g[k]
-            species.append(SpeciesAmount(name, db.strong_ions[name].charge, c, c * g / rho, g))
+            species.append(SpeciesAmount(name, z, c, c * g / rho, g))
     systems: list[SystemSpeciation] = []
-    m_row, g_row, f_row, t_row = tb.m[j], tb.g[j], tb.frac[j], tb.tot[j]
+    m_row, g_row, f_row, t_row, open_row = tb.m[j], tb.g[j], tb.frac[j], tb.tot[j], tb.is_open[j]
+    inv_rho = 1.0 / rho
     for k, sd in enumerate(asm.slots[j]):
-        mk, gk, fk = m_row[k], g_row[k], f_row[k]
+        mk, gk = m_row[k], g_row[k]
         total = t_row[k]
-        fr = dict(zip(sd.species, fk)) if total > 0 else {sp: float(q == 0) for q, sp in enumerate(sd.species)}
-        systems.append(SystemSpeciation(sd.name, total, fr, tb.is_open[j][k]))
-        for q, sp in enumerate(sd.species):
-            species.append(SpeciesAmount(sp, sd.charges[q], mk[q], mk[q] * gk[q] / rho, gk[q]))
+        fr = dict(zip(sd.species, f_row[k])) if total > 0 else {sp: float(q == 0) for q, sp in enumerate(sd.species)}
+        systems.append(SystemSpeciation(sd.name, total, fr, open_row[k]))
+        species.extend(
+            SpeciesAmount(sp, z, c, c * g * inv_rho, g) for sp, z, c, g in zip(sd.species, sd.charges, mk, gk)
+        )
     ionic = ionic_l / rho
     model = _model_name(int(p.activity_code[j]))
     limit = VALIDITY_LIMIT_MOL_KG[model]
