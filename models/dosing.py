@@ -294,7 +294,10 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
             out[i] = cap_errors[j]
             continue
         if status0[j] != OK:
-            out[i] = SolveError("the stream itself does not solve: " + str(status0[j]), "stream_not_solvable")
+            from models.equilibrium import STATUS_MESSAGES, failure_message  # reason, not a code
+
+            code = int(status0[j])
+            out[i] = SolveError("the stream itself does not solve: " + failure_message(code), STATUS_MESSAGES[code])
             continue
         reach = (float(lo[j]), float(hi[j]))
         if not met[j] and not (ok_dose[j] and conv[j]):
