@@ -5,7 +5,13 @@
 * ``protolyte openapi [--output openapi/openapi.json] [--check]`` — write (or check)
   the OpenAPI document of the service with built-in default settings.
 * ``protolyte solve INPUT [--output OUT] [--format csv|json]`` — solve streams from a
-  JSON or CSV file without a server (historian back-fill), chunk by chunk.
+  JSON or CSV file without a server, chunk by chunk (one stream per row, columns named
+  ``NAME [UNIT]``).
+* ``protolyte solve EXPORT --mapping MAP.yaml [--output OUT]`` — historian back-fill: a
+  CSV (or Parquet, with pyarrow) export with a timestamp column and one column per tag,
+  the mapping saying which column is which entry (``service.historian``), solved
+  column-wise; ``--dask`` / ``--scheduler ADDRESS`` runs it on a Dask cluster, one output
+  file per partition in the ``--output`` directory (``service.historian_dask``).
 
 Exit codes of ``solve``: 0 every row solved, 1 some rows failed (the output is
 still complete), 2 the input could not be read.
@@ -41,11 +47,17 @@ def build_parser() -> argparse.ArgumentParser:
     api.add_argument("--output", type=Path, default=DEFAULT_OPENAPI_PATH, help="file to write (default %(default)s)")
     api.add_argument("--check", action="store_true", help="only check that the file is up to date")
 
-    solve = sub.add_parser("solve", help="solve streams from a JSON or CSV file")
-    solve.add_argument("input", type=Path, help="JSON (list of streams) or CSV (one stream per row)")
-    solve.add_argument("--output", type=Path, help="output file (default: standard output)")
-    solve.add_argument("--format", choices=("csv", "json"), help="output format (default: that of the input)")
-    solve.add_argument("--chunk-size", type=int, default=5000, help="rows solved per core call (default %(default)s)")
+    solve = sub.add_parser("solve", help="solve streams from a JSON or CSV file, or a historian export")
+    solve.add_argument("input", type=Path, help="JSON (list of streams), CSV (one stream per row) or, with --mapping, a historian export (CSV or Parquet)")
+    solve.add_argument("--output", type=Path, help="output file (default: standard output); with --dask/--scheduler, a directory of part-NNNNN.csv files")
+    solve.add_argument("--format", choices=("csv", "json"), help="output format (default: that of the input; --mapping writes CSV)")
+    solve.add_argument("--chunk-size", type=int, help="rows solved per core call (default 5000; 50000 with --mapping)")
+    solve.add_argument("--mapping", type=Path, help="historian mapping file (YAML or JSON): which column is which composition entry, unit, default")
+    solve.add_argument("--dask", action="store_true", help="with --mapping: run on a local Dask cluster of worker processes on 127.0.0.1")
+    solve.add_argument("--scheduler", metavar="ADDRESS", help="with --mapping: run on the Dask cluster at ADDRESS (tcp://host:port; 'local' = --dask)")
+    solve.add_argument("--workers", type=int, default=2, help="worker processes of the local Dask cluster (default %(default)s)")
+    solve.add_argument("--partition-rows", type=int, help="rows per Dask partition, a multiple of --chunk-size (default 4 chunks)")
+    solve.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None, help="progress bar on stderr (default: when stderr is a terminal)")
     solve.add_argument(
         "--missing",
         choices=("error", "omit"),
@@ -113,8 +125,17 @@ def _solve(args: argparse.Namespace) -> int:
     from service.core import default_core
     from service.state import service_version
 
-    if args.chunk_size < 1:
+    if args.chunk_size is not None and args.chunk_size < 1:
         print("protolyte: --chunk-size must be at least 1", file=sys.stderr)
+        return 2
+    if args.mapping is not None:
+        return _solve_historian(args)
+    if args.dask or args.scheduler:
+        print("protolyte: --dask/--scheduler need a historian --mapping file", file=sys.stderr)
+        return 2
+    args.chunk_size = args.chunk_size or 5000
+    if args.input.suffix.lower() in (".parquet", ".pq"):
+        print("protolyte: a Parquet export needs a --mapping file", file=sys.stderr)
         return 2
     is_csv = args.input.suffix.lower() == ".csv"
     fmt = args.format or ("csv" if is_csv else "json")
@@ -151,6 +172,58 @@ def _solve(args: argparse.Namespace) -> int:
         if args.output:
             out.close()
     print(f"protolyte: {solved} rows solved, {failed} failed", file=sys.stderr)
+    return 0 if failed == 0 else 1
+
+
+def _solve_historian(args: argparse.Namespace) -> int:
+    from service import historian
+
+    chunk = args.chunk_size or 50_000
+    if args.format == "json":
+        print("protolyte: --mapping writes CSV (--format json is for stream files)", file=sys.stderr)
+        return 2
+    distributed = bool(args.dask or args.scheduler)
+    if distributed and args.output is None:
+        print("protolyte: --dask/--scheduler write one file per partition: give an --output directory", file=sys.stderr)
+        return 2
+
+    def report(err: historian.RowError) -> None:
+        print(historian.describe(err), file=sys.stderr)
+
+    try:
+        mapping = historian.load_mapping(args.mapping)
+        if distributed:
+            from service import historian_dask
+
+            summary = historian_dask.run_dask(
+                str(args.input), mapping, args.output, chunk_size=chunk,
+                rows_per_partition=args.partition_rows or 4 * chunk,
+                scheduler=args.scheduler, n_workers=args.workers, on_error=report, progress_enabled=args.progress,
+            )
+        else:
+            size = args.input.stat().st_size
+            total = size
+            if historian.is_parquet(args.input):
+                import pyarrow.parquet as pq
+
+                total = pq.ParquetFile(args.input).metadata.num_rows
+            progress = historian.Progress(total, "bytes", enabled=args.progress)
+            out = args.output.open("w", newline="", encoding="utf-8") if args.output else sys.stdout
+            try:
+                summary = historian.run_local(
+                    args.input, mapping, out, chunk_size=chunk, on_error=report, progress=progress,
+                )
+            finally:
+                progress.close()
+                if args.output:
+                    out.close()
+    except (ImportError, RuntimeError, OSError, UnicodeDecodeError, historian.MappingError) as exc:
+        # RuntimeError: dask[distributed] missing; OSError/TimeoutError: input, output or scheduler
+        print(f"protolyte: {exc}", file=sys.stderr)
+        return 2
+    failed = summary.failed_rows
+    where = f" into {len(summary.outputs)} partition files in {args.output}" if distributed else ""
+    print(f"protolyte: {summary.rows - failed} rows solved, {failed} failed{where}", file=sys.stderr)
     return 0 if failed == 0 else 1
 
 

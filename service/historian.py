@@ -1,0 +1,619 @@
+"""Historian back-fill: a plant historian's export solved column-wise, chunk by chunk.
+
+A historian export has a timestamp column and one column per analyte tag. A small
+mapping file (YAML or JSON) says which column is which composition entry::
+
+    timestamp: Timestamp                      # required: copied to the output first
+    temperature_c: {column: TT-401.PV, default: 20.0}   # or a number for every row
+    activity_model: davies                    # ideal | davies | extended_debye_huckel
+    co2_partial_pressure_atm: 0.00042         # optional: open to a gas phase
+    passthrough: [SamplePoint]                # optional columns copied to the output
+    composition:
+      - {column: AI-401.NA, name: Na+, unit: mg/L}
+      - {column: AI-402.CA, name: Ca2+, unit: mg/L, default: 35.0}   # used for empty cells
+
+Each chunk is parsed into columns; rows with a missing (and no default), non-numeric,
+non-finite, negative or out-of-range value are separated out and reported (row number,
+column, reason); the good rows go to ``models.columns`` in one array solve. A row whose
+equilibrium cannot be trusted is reported with the solver's reason, never written as a
+number. Memory is bounded by the chunk size: the input is read, solved and written one
+chunk at a time.
+
+The same :func:`solve_text` solves a chunk in-process and a partition on a Dask worker
+(``service.historian_dask``), so both paths give the same rows.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import itertools
+import json
+import math
+import sys
+import time
+from collections.abc import Iterator, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import IO, Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from models.activity import VALIDITY_LIMIT_MOL_KG
+from models.columns import problem_from_columns, solve_columns
+from models.derived import TOTAL_ENDPOINT_PH
+from models.equilibrium import failure_message
+from models.errors import InputError
+from models.solver import STATUS_MESSAGES
+from models.stream import ACTIVITY_MODELS
+from models.thermo import load_database
+from models.units import UNITS
+
+__all__ = [
+    "RESULT_COLUMNS",
+    "VALUE_MAX",
+    "ColumnSpec",
+    "Mapping_",
+    "MappingError",
+    "RowError",
+    "ChunkResult",
+    "load_mapping",
+    "parse_mapping",
+    "output_header",
+    "solve_rows",
+    "solve_text",
+    "read_csv_chunks",
+    "read_parquet_chunks",
+    "is_parquet",
+    "describe",
+    "Progress",
+    "run_local",
+    "RunSummary",
+]
+
+#: Largest composition value accepted [in its unit], as in the HTTP schema.
+VALUE_MAX = 1.0e6
+TEMPERATURE_RANGE_C = (0.0, 100.0)
+CO2_MAX_ATM = 10.0
+_FLOAT = "%.10g"  # 10 significant digits: far finer than any model's accuracy
+
+#: Result columns written after the timestamp and passed-through columns.
+RESULT_COLUMNS: tuple[str, ...] = (
+    "row",
+    "ok",
+    "ph",
+    "ionic_strength_mol_l",
+    "buffer_capacity_mmol_l_per_ph",
+    "alkalinity_total_mg_l_as_caco3",
+    "alkalinity_phenolphthalein_mg_l_as_caco3",
+    "charge_balance_residual_mol_l",
+    "solver_iterations",
+    "warnings",
+    "error_type",
+    "error_field",
+    "error_detail",
+)
+_NUMERIC_OUT = (
+    "ph",
+    "ionic_strength_mol_l",
+    "buffer_capacity_mmol_l_per_ph",
+    "alkalinity_total_mg_l_as_caco3",
+    "alkalinity_phenolphthalein_mg_l_as_caco3",
+    "charge_balance_residual_mol_l",
+)
+
+
+class MappingError(ValueError):
+    """The mapping file, or the input's header against it, cannot be used (exit code 2)."""
+
+
+@dataclass(frozen=True, slots=True)
+class ColumnSpec:
+    """One input column feeding a stream field: its column, and the default for empty cells."""
+
+    column: str | None
+    default: float | None = None
+
+
+@dataclass(frozen=True, slots=True)
+class Entry:
+    """A composition entry read from a column [unit]."""
+
+    column: str
+    name: str
+    unit: str
+    default: float | None = None
+
+
+@dataclass(frozen=True, slots=True)
+class Mapping_:
+    """A validated mapping file."""
+
+    timestamp: str
+    composition: tuple[Entry, ...]
+    temperature_c: ColumnSpec = ColumnSpec(None, 25.0)
+    activity_model: str = "davies"
+    co2_partial_pressure_atm: float | None = None
+    passthrough: tuple[str, ...] = ()
+
+    def input_columns(self) -> tuple[str, ...]:
+        """Every column the mapping reads, in output order first."""
+        cols = [self.timestamp, *self.passthrough]
+        if self.temperature_c.column is not None:
+            cols.append(self.temperature_c.column)
+        cols.extend(e.column for e in self.composition)
+        return tuple(dict.fromkeys(cols))
+
+
+def _num(value: Any, where: str, *, lo: float, hi: float) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        raise MappingError(f"{where}: {value!r} is not a finite number")
+    if not lo <= value <= hi:
+        raise MappingError(f"{where}: {value!r} is outside [{lo:g}, {hi:g}]")
+    return float(value)
+
+
+def _col(value: Any, where: str) -> str:
+    if not isinstance(value, str) or not value.strip():
+        raise MappingError(f"{where}: expected a column name (a non-empty string), got {value!r}")
+    return value
+
+
+def parse_mapping(doc: Any) -> Mapping_:
+    """Validate a mapping document (the parsed YAML/JSON); :class:`MappingError` says what is wrong."""
+    if not isinstance(doc, dict):
+        raise MappingError("the mapping must be an object with 'timestamp' and 'composition'")
+    known = {"timestamp", "temperature_c", "activity_model", "co2_partial_pressure_atm", "passthrough", "composition"}
+    extra = sorted(set(doc) - known)
+    if extra:
+        raise MappingError(f"unknown mapping key(s) {', '.join(map(repr, extra))}; known: {', '.join(sorted(known))}")
+    if "timestamp" not in doc:
+        raise MappingError("'timestamp': missing (the name of the timestamp column)")
+    timestamp = _col(doc["timestamp"], "timestamp")
+    t_lo, t_hi = TEMPERATURE_RANGE_C
+    raw_t = doc.get("temperature_c", 25.0)
+    if isinstance(raw_t, dict):
+        bad = sorted(set(raw_t) - {"column", "default"})
+        if bad:
+            raise MappingError(f"temperature_c: unknown key(s) {', '.join(map(repr, bad))}")
+        col = _col(raw_t.get("column"), "temperature_c.column")
+        default = raw_t.get("default")
+        temp = ColumnSpec(col, None if default is None else _num(default, "temperature_c.default", lo=t_lo, hi=t_hi))
+    else:
+        temp = ColumnSpec(None, _num(raw_t, "temperature_c", lo=t_lo, hi=t_hi))
+    model = doc.get("activity_model", "davies")
+    if model not in ACTIVITY_MODELS:
+        raise MappingError(f"activity_model: {model!r} is not one of {', '.join(ACTIVITY_MODELS)}")
+    pco2 = doc.get("co2_partial_pressure_atm")
+    if pco2 is not None:
+        pco2 = _num(pco2, "co2_partial_pressure_atm", lo=0.0, hi=CO2_MAX_ATM)
+    passthrough = doc.get("passthrough", [])
+    if not isinstance(passthrough, list):
+        raise MappingError("passthrough: expected a list of column names")
+    passthrough = [_col(c, f"passthrough[{i}]") for i, c in enumerate(passthrough)]
+    comp = doc.get("composition")
+    if not isinstance(comp, list) or not comp:
+        raise MappingError("composition: expected a non-empty list of {column, name, unit[, default]}")
+    entries: list[Entry] = []
+    for i, item in enumerate(comp):
+        where = f"composition[{i}]"
+        if not isinstance(item, dict):
+            raise MappingError(f"{where}: expected {{column, name, unit[, default]}}")
+        bad = sorted(set(item) - {"column", "name", "unit", "default"})
+        if bad:
+            raise MappingError(f"{where}: unknown key(s) {', '.join(map(repr, bad))}")
+        unit = item.get("unit")
+        if unit not in UNITS:
+            raise MappingError(f"{where}.unit: {unit!r} is not one of {', '.join(UNITS)}")
+        default = item.get("default")
+        entries.append(
+            Entry(
+                _col(item.get("column"), f"{where}.column"),
+                _col(item.get("name"), f"{where}.name").strip(),
+                unit,
+                None if default is None else _num(default, f"{where}.default", lo=0.0, hi=VALUE_MAX),
+            )
+        )
+    names = [e.name for e in entries]
+    dup = sorted({n for n in names if names.count(n) > 1})
+    if dup:
+        raise MappingError(f"composition: {', '.join(map(repr, dup))} mapped more than once")
+    mapping = Mapping_(timestamp, tuple(entries), temp, model, pco2, tuple(passthrough))
+    _check_chemistry(mapping)
+    return mapping
+
+
+def _check_chemistry(mapping: Mapping_) -> None:
+    """Names and units the core accepts: one trial row of ones through the column builder."""
+    for e in mapping.composition:
+        try:
+            problem_from_columns({e.name: (np.ones(1), e.unit)}, 25.0, mapping.activity_model)
+        except (InputError, ValueError) as exc:
+            raise MappingError(f"composition entry {e.name!r} ({e.column!r}, {e.unit!r}): {exc}") from None
+
+
+def load_mapping(path: Path) -> Mapping_:
+    """Read and validate a mapping file (``.json``, else YAML)."""
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise MappingError(f"{path}: cannot read the mapping file ({exc})") from None
+    try:
+        if path.suffix.lower() == ".json":
+            doc = json.loads(text)
+        else:
+            import yaml
+
+            doc = yaml.safe_load(text)
+    except Exception as exc:  # noqa: BLE001 - any parser error is a bad file
+        raise MappingError(f"{path}: not a valid {'JSON' if path.suffix.lower() == '.json' else 'YAML'} file ({exc})") from None
+    try:
+        return parse_mapping(doc)
+    except MappingError as exc:
+        raise MappingError(f"{path}: {exc}") from None
+
+
+def output_header(mapping: Mapping_) -> list[str]:
+    """Columns of the output CSV: timestamp, passed-through columns, :data:`RESULT_COLUMNS`."""
+    return [mapping.timestamp, *mapping.passthrough, *RESULT_COLUMNS]
+
+
+@dataclass(frozen=True, slots=True)
+class RowError:
+    """One bad row: its number (1 = first data row), the column(s) and the reason."""
+
+    row: int
+    column: str
+    reason: str
+    kind: str = "validation-error"
+
+
+def describe(err: RowError) -> str:
+    """``row N: column 'X': reason`` for the terminal."""
+    return f"row {err.row}: column {err.column!r}: {err.reason}"
+
+
+@dataclass(slots=True)
+class ChunkResult:
+    """A solved chunk or partition: the output CSV text (no header) and its bad rows."""
+
+    text: str
+    rows: int
+    errors: list[RowError] = field(default_factory=list)
+
+
+def _parse_column(
+    cells: Sequence[str], column: str, default: float | None, lo: float, hi: float, unit: str,
+    bad: dict[int, list[tuple[str, str]]],
+) -> NDArray[np.float64]:
+    """Floats of one column; bad cells go to ``bad[i]`` as (column, reason) and become NaN."""
+    try:
+        values = np.array(cells, dtype=np.float64)
+    except ValueError:
+        values = np.empty(len(cells))
+        for i, cell in enumerate(cells):
+            text = cell.strip()
+            if text == "":
+                if default is None:
+                    bad.setdefault(i, []).append((column, "value is missing (and the mapping gives no default)"))
+                    values[i] = np.nan
+                else:
+                    values[i] = default
+                continue
+            try:
+                values[i] = float(text)
+            except ValueError:
+                bad.setdefault(i, []).append((column, f"{text!r} is not a number"))
+                values[i] = np.nan
+                continue
+        checked = np.ones(len(cells), dtype=bool)
+        checked[list(i for i in bad if any(c == column for c, _ in bad[i]))] = False
+    else:
+        checked = np.ones(len(cells), dtype=bool)
+    finite = np.isfinite(values)
+    for i in np.flatnonzero(checked & ~finite):
+        bad.setdefault(int(i), []).append((column, f"{cells[i].strip()!r} is not a finite number"))
+    out_of_range = checked & finite & ((values < lo) | (values > hi))
+    for i in np.flatnonzero(out_of_range):
+        v = float(values[i])
+        if unit == "°C":
+            why = f"{v:g} °C is outside {lo:g}–{hi:g} °C"
+        elif v < lo:
+            why = f"{v:g} {unit} is negative"
+        else:
+            why = f"{v:g} {unit} is above the largest accepted value ({hi:g} {unit})"
+        bad.setdefault(int(i), []).append((column, why))
+    return values
+
+
+def _warnings(
+    mapping: Mapping_, names: Sequence[str], t: NDArray[np.float64], res: Mapping[str, NDArray], ok: NDArray[np.bool_]
+) -> list[str]:
+    """Per-row warnings (the same conditions the per-stream solve warns about)."""
+    n = t.size
+    parts: list[list[str]] = [[] for _ in range(n)]
+    db = load_database()
+    for name in names:
+        sysd = db.systems.get(name)
+        if sysd is None:
+            continue
+        for k, step in enumerate(sysd.steps):
+            if step.fit is None:
+                continue
+            outside = (t < step.fit.tmin_c) | (t > step.fit.tmax_c)
+            for i in np.flatnonzero(outside & ok):
+                parts[i].append(f"{name}: pK{k + 1} is extrapolated beyond the temperature range of its fit")
+    if mapping.co2_partial_pressure_atm is not None and "carbonate" in names:
+        for i in np.flatnonzero(ok):
+            parts[i].append("the carbonate total of the analysis is replaced by equilibrium with the gas phase")
+    ph = res["ph"]
+    for i in np.flatnonzero(ok & (ph < TOTAL_ENDPOINT_PH)):
+        parts[i].append(f"pH is below the {TOTAL_ENDPOINT_PH} end point: total alkalinity is 0 (mineral acidity)")
+    limit = VALIDITY_LIMIT_MOL_KG[mapping.activity_model]
+    # ionic strength of the solver is molal; the result column is per litre (÷ density ≈ 1).
+    ionic = res["ionic_strength_mol_kg"]
+    for i in np.flatnonzero(ok & (ionic > limit)):
+        parts[i].append(
+            f"ionic strength {ionic[i]:.3g} mol/kg is above the {limit:g} mol/kg validity limit "
+            f"of the {mapping.activity_model} activity model: treat the pH as approximate"
+        )
+    return [" | ".join(p) for p in parts]
+
+
+def _csv_cell(text: str) -> str:
+    if any(c in text for c in ',"\r\n'):
+        return '"' + text.replace('"', '""') + '"'
+    return text
+
+
+def solve_rows(rows: list[list[str]], header: Sequence[str], mapping: Mapping_, first_row: int) -> ChunkResult:
+    """Solve one chunk of parsed CSV rows (``first_row`` = number of ``rows[0]``)."""
+    n = len(rows)
+    width = len(header)
+    bad: dict[int, list[tuple[str, str]]] = {}
+    ragged: dict[int, list[tuple[str, str]]] = {}
+    if any(len(r) != width for r in rows):
+        for i, r in enumerate(rows):
+            if len(r) != width:
+                ragged[i] = [("(row)", f"has {len(r)} fields, the header has {width}")]
+                rows[i] = (r + [""] * width)[:width]
+    index = {c: header.index(c) for c in mapping.input_columns()}
+    cols = list(zip(*rows)) if n else [() for _ in header]
+    cell = {c: cols[j] for c, j in index.items()}
+    t_spec = mapping.temperature_c
+    if t_spec.column is None:
+        temperature = np.full(n, t_spec.default)
+    else:
+        temperature = _parse_column(cell[t_spec.column], t_spec.column, t_spec.default, *TEMPERATURE_RANGE_C, "°C", bad)
+    values = {
+        e.name: _parse_column(cell[e.column], e.column, e.default, 0.0, VALUE_MAX, e.unit, bad)
+        for e in mapping.composition
+    }
+    bad.update(ragged)  # a ragged row is reported for its shape, not for the cells padded in
+    good = np.ones(n, dtype=bool)
+    good[list(bad)] = False
+    gi = np.flatnonzero(good)
+    out_cols: dict[str, NDArray] = {}
+    status = np.array([], dtype=object)
+    if gi.size:
+        batch = problem_from_columns(
+            {e.name: (values[e.name][gi], e.unit) for e in mapping.composition},
+            temperature[gi],
+            mapping.activity_model,
+            co2_partial_pressure_atm=mapping.co2_partial_pressure_atm,
+        )
+        res = solve_columns(batch)
+        out_cols = dict(res)
+        out_cols["ionic_strength_mol_kg"] = res["ionic_strength_mol_l"] / batch.density_kg_l
+        status = res["status"]
+        solved = status == STATUS_MESSAGES[0]
+        warn = _warnings(mapping, [e.name for e in mapping.composition], temperature[gi], out_cols, solved)
+    errors: list[RowError] = []
+    lines: list[str] = []
+    pass_idx = [index[c] for c in (mapping.timestamp, *mapping.passthrough)]
+    k = 0
+    codes = {v: c for c, v in STATUS_MESSAGES.items()}
+    nums = [out_cols[c] for c in _NUMERIC_OUT] if gi.size else []
+    iters = out_cols["iterations"] if gi.size else []
+    fmt = ",".join([_FLOAT] * len(_NUMERIC_OUT))
+    for i in range(n):
+        r = rows[i]
+        lead = ",".join(_csv_cell(r[j]) for j in pass_idx)
+        number = first_row + i
+        if not good[i]:
+            reasons = bad[i]
+            cols_txt = "; ".join(dict.fromkeys(c for c, _ in reasons))
+            detail = "; ".join(f"{c}: {why}" for c, why in reasons)
+            for c, why in reasons:
+                errors.append(RowError(number, c, why))
+            lines.append(f"{lead},{number},false,,,,,,,,,validation-error,{_csv_cell(cols_txt)},{_csv_cell(detail)}")
+            continue
+        s = status[k]
+        if s != "ok":
+            why = f"{s}: {failure_message(codes[s])}"
+            errors.append(RowError(number, "(stream)", why, "solve-failed"))
+            lines.append(f"{lead},{number},false,,,,,,,{int(iters[k])},,solve-failed,,{_csv_cell(why)}")
+        else:
+            vals = fmt % tuple(float(a[k]) for a in nums)
+            lines.append(f"{lead},{number},true,{vals},{int(iters[k])},{_csv_cell(warn[k])},,,")
+        k += 1
+    return ChunkResult("\n".join(lines) + ("\n" if lines else ""), n, errors)
+
+
+def solve_text(text: str, header: Sequence[str], mapping: Mapping_, first_row: int, chunk_size: int) -> ChunkResult:
+    """Solve CSV data lines (no header) chunk by chunk; the text of a partition or a chunk."""
+    reader = csv.reader(io.StringIO(text))
+    parts: list[str] = []
+    errors: list[RowError] = []
+    rows_done = 0
+    while True:
+        rows = list(itertools.islice(reader, chunk_size))
+        if not rows:
+            break
+        res = solve_rows(rows, header, mapping, first_row + rows_done)
+        parts.append(res.text)
+        errors.extend(res.errors)
+        rows_done += res.rows
+    return ChunkResult("".join(parts), rows_done, errors)
+
+
+def check_header(header: Sequence[str], mapping: Mapping_) -> None:
+    """:class:`MappingError` when a mapped column is not in the header (or twice)."""
+    missing = [c for c in mapping.input_columns() if c not in header]
+    if missing:
+        raise MappingError(
+            f"column(s) {', '.join(map(repr, missing))} of the mapping are not in the input "
+            f"(its columns: {', '.join(header)})"
+        )
+    dup = sorted({c for c in header if list(header).count(c) > 1})
+    if dup:
+        raise MappingError(f"column(s) {', '.join(map(repr, dup))} appear more than once in the input header")
+
+
+def read_header(handle: IO[bytes]) -> tuple[list[str], int]:
+    """The CSV header row of a binary handle and its length in bytes (BOM included)."""
+    line = handle.readline()
+    if not line.strip():
+        raise MappingError("the CSV file is empty (no header row)")
+    text = line.decode("utf-8-sig")
+    return next(csv.reader([text])), len(line)
+
+
+def read_csv_chunks(handle: IO[bytes], chunk_size: int) -> Iterator[tuple[str, int]]:
+    """(text of up to ``chunk_size`` data lines, their bytes) from a binary handle after its header."""
+    while True:
+        lines = list(itertools.islice(handle, chunk_size))
+        if not lines:
+            return
+        data = b"".join(lines)
+        yield data.decode("utf-8"), len(data)
+
+
+def is_parquet(path: Path) -> bool:
+    """A Parquet file by its suffix."""
+    return path.suffix.lower() in (".parquet", ".pq")
+
+
+def _parquet_rows(batch: Any, header: Sequence[str]) -> list[list[str]]:
+    """A pyarrow record batch as CSV-like string rows (null → empty cell)."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    cols: list[list[str]] = []
+    for name in header:
+        col = batch.column(name)
+        if pa.types.is_timestamp(col.type) or pa.types.is_date(col.type):
+            col = pc.cast(col, pa.string())
+        elif not pa.types.is_string(col.type) and not pa.types.is_large_string(col.type):
+            col = pc.cast(col, pa.string())
+        cols.append(["" if v is None else v for v in col.to_pylist()])
+    return [list(r) for r in zip(*cols)] if cols else []
+
+
+def read_parquet_chunks(path: str, mapping: Mapping_, chunk_size: int, row_groups: Sequence[int] | None = None
+                        ) -> Iterator[tuple[list[list[str]], list[str], int]]:
+    """(rows, header, row count) per chunk of a Parquet file, row group by row group."""
+    try:
+        import pyarrow.parquet as pq
+    except ImportError:
+        raise MappingError("reading Parquet needs pyarrow: pip install -c constraints.txt -e '.[parquet]'") from None
+    pf = pq.ParquetFile(path)
+    header = list(mapping.input_columns())
+    check_header(pf.schema_arrow.names, mapping)
+    for g in row_groups if row_groups is not None else range(pf.num_row_groups):
+        table = pf.read_row_group(g, columns=header)
+        for start in range(0, table.num_rows, chunk_size):
+            part = table.slice(start, chunk_size)
+            yield _parquet_rows(part, header), header, part.num_rows
+
+
+def solve_parquet(path: str, mapping: Mapping_, chunk_size: int, first_row: int, row_groups: Sequence[int]) -> ChunkResult:
+    """Solve row groups of a Parquet file (a Dask partition, or the whole file in-process)."""
+    parts: list[str] = []
+    errors: list[RowError] = []
+    done = 0
+    for rows, header, count in read_parquet_chunks(path, mapping, chunk_size, row_groups):
+        res = solve_rows(rows, header, mapping, first_row + done)
+        parts.append(res.text)
+        errors.extend(res.errors)
+        done += count
+    return ChunkResult("".join(parts), done, errors)
+
+
+class Progress:
+    """A one-line progress bar on stderr, shown only when stderr is a terminal."""
+
+    def __init__(self, total: float, unit: str, *, stream: IO[str] | None = None, enabled: bool | None = None) -> None:
+        self._stream = stream or sys.stderr
+        self.enabled = self._stream.isatty() if enabled is None else enabled
+        self.total = max(float(total), 1.0)
+        self.unit = unit
+        self.done = 0.0
+        self.rows = 0
+        self._start = time.monotonic()
+        self._last = 0.0
+
+    def update(self, amount: float, rows: int) -> None:
+        """Advance by ``amount`` (bytes or partitions) and ``rows``; redraw at most 10 times a second."""
+        self.done += amount
+        self.rows += rows
+        now = time.monotonic()
+        if self.enabled and (now - self._last >= 0.1 or self.done >= self.total):
+            self._last = now
+            frac = min(self.done / self.total, 1.0)
+            bar = "#" * int(frac * 30)
+            rate = self.rows / max(now - self._start, 1e-9)
+            self._stream.write(f"\rprotolyte solve [{bar:<30}] {frac:6.1%} {self.rows} rows, {rate:,.0f} rows/s")
+            self._stream.flush()
+
+    def close(self) -> None:
+        """End the line."""
+        if self.enabled:
+            self._stream.write("\n")
+            self._stream.flush()
+
+
+@dataclass(slots=True)
+class RunSummary:
+    """What a run did: rows read, bad rows, files written."""
+
+    rows: int = 0
+    errors: list[RowError] = field(default_factory=list)
+    outputs: list[str] = field(default_factory=list)
+
+    @property
+    def failed_rows(self) -> int:
+        """Number of distinct rows that failed."""
+        return len({e.row for e in self.errors})
+
+
+def run_local(
+    input_path: Path, mapping: Mapping_, out: IO[str], *, chunk_size: int, on_error: Any = None,
+    progress: Progress | None = None,
+) -> RunSummary:
+    """Solve a CSV or Parquet export in this process, one chunk at a time, writing CSV to ``out``."""
+    summary = RunSummary()
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(output_header(mapping))
+
+    def emit(res: ChunkResult, amount: float) -> None:
+        out.write(res.text)
+        summary.rows += res.rows
+        summary.errors.extend(res.errors)
+        if on_error is not None:
+            for e in res.errors:
+                on_error(e)
+        if progress is not None:
+            progress.update(amount, res.rows)
+
+    if is_parquet(input_path):
+        for rows, header, count in read_parquet_chunks(str(input_path), mapping, chunk_size):
+            emit(solve_rows(rows, header, mapping, summary.rows + 1), count)
+        return summary
+    with input_path.open("rb") as handle:
+        header, _ = read_header(handle)
+        check_header(header, mapping)
+        for text, nbytes in read_csv_chunks(handle, chunk_size):
+            emit(solve_text(text, header, mapping, summary.rows + 1, chunk_size), nbytes)
+    return summary
