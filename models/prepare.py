@@ -20,7 +20,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from models import units, water
-from models.activity import model_code
+from models.activity import HARD_LIMIT_MOL_KG, model_code
 from models.errors import InputError
 from models.fractions import cumulative_pk
 from models.solver import BalanceProblem
@@ -130,6 +130,14 @@ def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
         if ion is not None:
             strong[name] = molal
         elif system is not None:
+            if molal > HARD_LIMIT_MOL_KG:
+                # Neutral species are ideal (γ = 1), true only in dilute solution, and escape
+                # the ionic-strength limit: an undissociated total needs its own bound.
+                raise InputError(
+                    f"{name}: {molal:.3g} mol/kg of water is more than {HARD_LIMIT_MOL_KG:g} mol/kg, "
+                    "beyond every activity model offered here; check the value and its unit",
+                    where + "/value",
+                )
             systems.append(system)
             totals.append(molal)
         else:
