@@ -18,6 +18,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
+from functools import lru_cache
 import numpy as np
 from numpy.typing import NDArray
 
@@ -184,12 +185,74 @@ def dose_at_ph(
         ionic = new
         if conv.all():
             break
+    _LAST_IONIC[0] = ionic
     return d, conv
+
+
+_LAST_IONIC: list[NDArray] = [np.zeros(0)]
 
 
 def _forward(p: BalanceProblem, d: NDArray, dc, di, dt) -> tuple[NDArray, NDArray, NDArray]:
     st = solve_balance(_shift(p, d, dc, di, dt))
     return st.ph, st.ionic_strength, st.status
+
+
+def _hydroxide_cation(reagent: Reagent, db: ThermoDatabase) -> str | None:
+    """The metal ion of a sparingly soluble hydroxide slurry (lime, Mg(OH)2), else None."""
+    if reagent.kind != "base" or not reagent.solubility_table:
+        return None
+    ions = [x for x in reagent.adds if x in db.strong_ions]
+    if len(ions) == 1 and len(reagent.adds) == 1 and db.strong_ions[ions[0]].charge == 2:
+        return ions[0]
+    return None
+
+
+@lru_cache(maxsize=256)
+def _log_ksp_hydroxide(reagent_name: str, cation: str, temperature_c: float, solubility_mol_kg: float) -> float:
+    """log10 Ksp of M(OH)2 [-] implied by its solubility in pure water [mol/kg], through
+    this model's own Davies activities: Ksp = a(M²⁺)·a(OH⁻)² of the saturated solution.
+    Consistent with the model by construction (the pure-water ceiling is reproduced)."""
+    from models.equilibrium import solve
+
+    res = solve(
+        StreamSpec((Entry(cation, solubility_mol_kg, "mol/kg"),), temperature_c=temperature_c),
+    )
+    act = {sp.name: sp.activity for sp in res.species}
+    return float(np.log10(act[cation]) + 2 * np.log10(act["OH-"]))
+
+
+def _saturation_ph(
+    p: BalanceProblem, ph0: NDArray, dc, di, dt, ionic0: NDArray, m0: NDArray, coef: float,
+    log_ksp: NDArray, size: float,
+) -> tuple[NDArray, NDArray]:
+    """pH [-] and dose [mol/L] at which the dosed stream saturates with M(OH)2, by
+    bisection on pH (the ion product a(M)·a(OH)² rises monotonically along the dose).
+
+    ``m0`` [mol/kg] is the metal already in the stream, ``coef`` mol of metal per mol of
+    dose. Where even the stream as it is exceeds Ksp the dose limit is 0."""
+    from models.activity import log_gamma
+
+    def excess(ph: NDArray) -> tuple[NDArray, NDArray]:
+        d, _ = dose_at_ph(p, ph, dc, di, dt, ionic0)
+        ionic = _LAST_IONIC[0]
+        lg_m = log_gamma(np.full_like(ph, 2.0), np.full_like(ph, size), ionic, p.a_dh, p.b_dh, p.activity_code)
+        metal = np.maximum(m0 + coef * np.nan_to_num(d) * dc_to_molal, 1e-300)
+        log_iap = np.log10(metal) + lg_m + 2 * (ph - p.pkw)  # a(OH-) = Kw / a(H+)
+        return log_iap - log_ksp, d
+
+    dc_to_molal = dc / (2.0 * coef)  # dc = 2·coef/ρ per unit dose for an M²⁺ reagent
+    lo = ph0.copy()
+    hi = np.full_like(ph0, PH_MAX - 0.5)
+    ex_lo, _ = excess(lo)
+    for _ in range(45):
+        mid = 0.5 * (lo + hi)
+        ex, _ = excess(mid)
+        above = ex > 0
+        hi = np.where(above, mid, hi)
+        lo = np.where(above, lo, mid)
+    ph_sat = np.where(ex_lo > 0, ph0, lo)
+    _, d_sat = excess(ph_sat)
+    return ph_sat, np.where(ex_lo > 0, 0.0, np.nan_to_num(d_sat))
 
 
 def _ceiling(
@@ -210,11 +273,78 @@ def _ceiling(
             except InputError as exc:
                 errors[i] = InputError(exc.message, "/temperature_c")
                 continue
-            if sol is not None:
+            if sol is not None and _hydroxide_cation(reagent, db) is None:
                 limit_mol_kg = sol * 10.0 / reagent.molar_mass_g_mol
         if limit_mol_kg is not None:
             cap[i] = min(cap[i], limit_mol_kg * ps.density_kg_l)
     return cap, errors
+
+
+REACH_SAMPLES = 33
+
+
+def _resolve_along_path(p, idx, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, lo, hi) -> None:
+    """For streams the setpoint inversion could not settle: walk the dose path.
+
+    pH need not be monotone in the dose of a weak reagent at high ionic strength
+    (NaHCO3 first raises an acid stream toward ½(pK1 + pK2), then activity effects pull
+    it down again), so the reachable range is taken from forward solves at log-spaced
+    doses up to the limit; a setpoint inside it is then found by bisection on the dose
+    between the first two samples that bracket it. Updates the arrays in place."""
+    n = idx.size
+    frac = np.concatenate([[0.0], np.logspace(-6, 0, REACH_SAMPLES - 1)])
+    doses = cap[idx][:, None] * frac[None, :]
+    rows = np.repeat(idx, REACH_SAMPLES)
+    ph_s, _, st_s = _forward(p.take(rows), doses.ravel(), dc[rows], di[rows], dt[rows])
+    ph_s = np.where(st_s == OK, ph_s, np.nan).reshape(n, REACH_SAMPLES)
+    lo[idx] = np.fmin(lo[idx], np.nanmin(ph_s, axis=1))
+    hi[idx] = np.fmax(hi[idx], np.nanmax(ph_s, axis=1))
+    target = sp[idx]
+    rel = ph_s - target[:, None]
+    cross = (rel[:, :-1] * rel[:, 1:] <= 0) & np.isfinite(rel[:, :-1] + rel[:, 1:])
+    has = cross.any(axis=1)
+    if not has.any():
+        return
+    first = np.argmax(cross, axis=1)
+    sub = np.nonzero(has)[0]
+    a = doses[sub, first[sub]]
+    b = doses[sub, first[sub] + 1]
+    sign_a = np.sign(rel[sub, first[sub]])
+    rows2 = idx[sub]
+    psub = p.take(rows2)
+    for _ in range(60):
+        mid = 0.5 * (a + b)
+        ph_m, _, _ = _forward(psub, mid, dc[rows2], di[rows2], dt[rows2])
+        same = np.sign(ph_m - target[sub]) == sign_a
+        a = np.where(same, mid, a)
+        b = np.where(same, b, mid)
+    dose[rows2] = 0.5 * (a + b)
+    ok_dose[rows2] = True
+    conv[rows2] = True
+
+
+def _slurry_cap(reagent, cation, parsed, asm, p, ph0, dc, di, dt, sv, cap, ph_cap, db):
+    """Dose limit of a hydroxide slurry: saturation of M(OH)2 in the dosed stream itself
+    (an acid stream dissolves far more lime than pure water does)."""
+    temps = [ps.temperature_c for ps in parsed]
+    log_ksp = np.empty(len(parsed))
+    for i, t in enumerate(temps):
+        try:
+            sol = reagent.solubility_g_per_100g_h2o(t)
+        except InputError:
+            log_ksp[i] = np.inf  # temperature outside the table: reported by _ceiling
+            continue
+        log_ksp[i] = _log_ksp_hydroxide(reagent.name, cation, round(t, 6), sol * 10.0 / reagent.molar_mass_g_mol)
+    col = asm.strong_names.index(cation)
+    m0 = asm.strong_molal[:, col]
+    ph_sat, d_sat = _saturation_ph(
+        p, ph0, dc, di, dt, sv.state.ionic_strength, m0, reagent.adds[cation],
+        log_ksp, db.strong_ions[cation].ion_size_angstrom,
+    )
+    finite = np.isfinite(log_ksp)
+    cap = np.where(finite, np.minimum(cap, d_sat), cap)
+    ph_cap = np.where(finite & (d_sat < MAX_DOSE_MOL_L), ph_sat, ph_cap)
+    return cap, ph_cap
 
 
 def plan_doses(
@@ -265,6 +395,9 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
             break
         cap = np.where(bad, cap / 2.0, cap)
         ph_cap, _, status_cap = _forward(p, cap, dc, di, dt)
+    cation = _hydroxide_cation(reagent, db)
+    if cation is not None:
+        cap, ph_cap = _slurry_cap(reagent, cation, parsed, asm, p, ph0, dc, di, dt, sv, cap, ph_cap, db)
     dose, conv = dose_at_ph(p, sp, dc, di, dt, sv.state.ionic_strength)
     # The reagent moves the pH from the stream's own pH toward the pH at the limit dose:
     # usually up for a base, but a weak one (NaHCO3) lowers an alkaline stream.
@@ -272,7 +405,15 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     met = np.abs(ph0 - sp) <= SETPOINT_TOLERANCE_PH
     dose = np.where(met, 0.0, dose)
     ok_dose = np.isfinite(dose) & (dose >= 0) & (dose <= cap * (1 + 1e-9))
+    hard = np.nonzero(~met & ~(ok_dose & conv) & (status0 == OK))[0]
+    if hard.size:
+        _resolve_along_path(p, hard, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, lo, hi)
     final_ph, _, status_f = _forward(p, np.where(ok_dose, dose, 0.0), dc, di, dt)
+    # A weak reagent's path can pass beyond both ends (not monotone): what it reached is
+    # reachable.
+    reached = ok_dose & (status_f == OK)
+    lo = np.where(reached, np.minimum(lo, final_ph), lo)
+    hi = np.where(reached, np.maximum(hi, final_ph), hi)
     gain = _gain(p, sp, dc, di, dt, sv.state.ionic_strength)
     # The pH move a ±1 % reagent-flow error really gives, by forward solves: near an
     # equivalence point the linear gain × 1 % overstates it (pH cannot move 20 units)

@@ -44,7 +44,9 @@ LN10 = float(np.log(10.0))
 PH_MIN, PH_MAX = -1.0, 15.0
 PH_TOL = 1e-10
 I_RTOL, I_ATOL = 1e-11, 1e-14
-MAX_NEWTON, MAX_OUTER = 100, 60
+MAX_NEWTON, MAX_OUTER = 200, 60
+#: Joint pH/ionic-strength Newton steps before a stream falls back to nested iteration.
+JOINT_STEPS = 16
 
 OK, BELOW_RANGE, ABOVE_RANGE, NOT_CONVERGED, IONIC_STRENGTH = 0, 1, 2, 3, 4
 #: Stable reason code per status.
@@ -259,9 +261,11 @@ def solve_balance(p: BalanceProblem, ph_guess: NDArray | None = None) -> Balance
     """Solve every stream's charge balance with self-consistent ionic strength.
 
     One loop does both: a bracketed Newton step on G(pH) with the activity coefficients
-    of the current ionic strength, then the ionic strength of the new state. The bracket
-    is reopened while the ionic strength still moves (it was valid for the old γ).
-    Converged streams leave the working set, which is compacted as it shrinks.
+    of the current ionic strength, then the ionic strength of the new state; the bracket
+    is widened by the root's possible shift when γ changes. A stream not converged after
+    JOINT_STEPS falls back to nested iteration — ionic strength held until its pH has
+    converged, then updated — which cannot cycle. Converged streams leave the working
+    set, which is compacted as it shrinks.
     """
     n = p.n_streams
     full = BalanceKernel(p)
@@ -294,14 +298,22 @@ def solve_balance(p: BalanceProblem, ph_guess: NDArray | None = None) -> Balance
         i_ok = ideal[rows] | (np.abs(new_i - cur) <= I_ATOL + I_RTOL * new_i)
         small = np.isfinite(step) & (np.abs(step) < PH_TOL)
         conv = act & i_ok & (small | (hi_r - lo_r < PH_TOL))
-        lo_r = np.where(i_ok, lo_r, np.maximum(PH_MIN, np.minimum(lo_r, nxt) - 0.5))
-        hi_r = np.where(i_ok, hi_r, np.minimum(PH_MAX, np.maximum(hi_r, nxt) + 0.5))
+        # Nested mode (after JOINT_STEPS): hold I until the pH has settled for it.
+        nested = iters[rows] >= JOINT_STEPS
+        settled = (np.isfinite(step) & (np.abs(step) < 1e-7)) | (hi_r - lo_r < 1e-7)
+        update_i = ~i_ok & (~nested | settled)
+        # The root moves with γ by about |Δlog γ| ≤ z²·A·|Δ√I| (z² ≤ 9 here, A < 0.61):
+        # widen the bracket by a safe multiple of that, not more, so it still shrinks.
+        shift = 10.0 * k.p.a_dh * np.abs(np.sqrt(new_i) - np.sqrt(cur)) + 1e-9
+        margin = np.where(update_i, np.where(nested, shift + 1e-6, shift), 0.0)
+        lo_r = np.maximum(PH_MIN, np.minimum(lo_r, nxt) - margin)
+        hi_r = np.minimum(PH_MAX, np.maximum(hi_r, nxt) + margin)
         lo[rows] = np.where(act, lo_r, lo[rows])
         hi[rows] = np.where(act, hi_r, hi[rows])
         ph[rows] = np.where(act, np.where(conv, np.where(small & ~bad, newton, x), nxt), ph[rows])
         # A converged stream keeps the ionic strength its pH was solved with, so the
         # reported residual is that of the pH returned.
-        ionic[rows] = np.where(act & ~conv, new_i, ionic[rows])
+        ionic[rows] = np.where(act & ~conv & update_i, new_i, ionic[rows])
         iters[rows] += act
         done[rows[conv]] = True
         if done.all():

@@ -258,12 +258,6 @@ def test_dose_advice_names_the_stream_temperature_outside_the_solubility_table()
     assert err.value.field == "/stream/temperature_c"
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="open: the slurry ceiling caps the dose at the hydroxide's solubility in pure "
-    "water, but in an acidic stream the hydroxide dissolves by reaction (CaCl2 is very "
-    "soluble); the ceiling belongs on the final state (saturation index of M(OH)2)",
-)
 def test_lime_neutralises_a_strong_acid_beyond_its_pure_water_solubility() -> None:
     # textbook stoichiometry: Ca(OH)2 + 2 HCl → CaCl2 + 2 H2O; 0.1 M HCl to pH 7 takes
     # ≈ 50 mmol/L of lime, all of it dissolved as CaCl2
