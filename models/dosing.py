@@ -161,9 +161,10 @@ def _shift(p: BalanceProblem, d: NDArray, dc: NDArray, di: NDArray, dt: NDArray)
 
 def dose_at_ph(
     p: BalanceProblem, ph: NDArray, dc: NDArray, di: NDArray, dt: NDArray, ionic0: NDArray
-) -> tuple[NDArray, NDArray]:
+) -> tuple[NDArray, NDArray, NDArray]:
     """Dose [mol/L] that puts each stream exactly at ``ph``; NaN where the reagent
-    cannot move the balance that way (ΔF = 0). Returns (dose, converged).
+    cannot move the balance that way (ΔF = 0). Returns (dose, converged, ionic strength
+    of the dosed stream [mol/kg]).
 
     At fixed γ: F(pH; d) = F(pH; 0) + d·(Δstrong + Σ_k Δtotal_k·z̄_k(pH)); the ionic
     strength of the dosed stream, I(0) + d·(Δ(Σmz²)/2 + Σ_k Δtotal_k·<z²>_k/2), is
@@ -185,11 +186,7 @@ def dose_at_ph(
         ionic = new
         if conv.all():
             break
-    _LAST_IONIC[0] = ionic
-    return d, conv
-
-
-_LAST_IONIC: list[NDArray] = [np.zeros(0)]
+    return d, conv, ionic
 
 
 def _forward(p: BalanceProblem, d: NDArray, dc, di, dt) -> tuple[NDArray, NDArray, NDArray]:
@@ -233,8 +230,7 @@ def _saturation_ph(
     from models.activity import log_gamma
 
     def excess(ph: NDArray) -> tuple[NDArray, NDArray]:
-        d, _ = dose_at_ph(p, ph, dc, di, dt, ionic0)
-        ionic = _LAST_IONIC[0]
+        d, _, ionic = dose_at_ph(p, ph, dc, di, dt, ionic0)
         lg_m = log_gamma(np.full_like(ph, 2.0), np.full_like(ph, size), ionic, p.a_dh, p.b_dh, p.activity_code)
         metal = np.maximum(m0 + coef * np.nan_to_num(d) * dc_to_molal, 1e-300)
         log_iap = np.log10(metal) + lg_m + 2 * (ph - p.pkw)  # a(OH-) = Kw / a(H+)
@@ -398,7 +394,7 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     cation = _hydroxide_cation(reagent, db)
     if cation is not None:
         cap, ph_cap = _slurry_cap(reagent, cation, parsed, asm, p, ph0, dc, di, dt, sv, cap, ph_cap, db)
-    dose, conv = dose_at_ph(p, sp, dc, di, dt, sv.state.ionic_strength)
+    dose, conv, _ = dose_at_ph(p, sp, dc, di, dt, sv.state.ionic_strength)
     # The reagent moves the pH from the stream's own pH toward the pH at the limit dose:
     # usually up for a base, but a weak one (NaHCO3) lowers an alkaline stream.
     lo, hi = np.minimum(ph0, ph_cap), np.maximum(ph0, ph_cap)
@@ -484,8 +480,8 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
 
 def _gain(p, sp, dc, di, dt, ionic) -> NDArray:
     """dpH/d(dose) [pH per mol/L] at the setpoint: 1 / (d dose / d pH) by central difference."""
-    up, _ = dose_at_ph(p, sp + GAIN_STEP_PH, dc, di, dt, ionic)
-    down, _ = dose_at_ph(p, sp - GAIN_STEP_PH, dc, di, dt, ionic)
+    up, _, _ = dose_at_ph(p, sp + GAIN_STEP_PH, dc, di, dt, ionic)
+    down, _, _ = dose_at_ph(p, sp - GAIN_STEP_PH, dc, di, dt, ionic)
     with np.errstate(divide="ignore", invalid="ignore"):
         return (2 * GAIN_STEP_PH) / (up - down)
 
@@ -522,7 +518,10 @@ def _equivalence_points(d: NDArray, ph: NDArray) -> tuple[tuple[float, ...], tup
     median slope), refined by a parabola through the three slopes around each."""
     if d.size < 5:
         return (), ()
-    slope = np.abs(np.diff(ph) / np.diff(d))
+    step = np.diff(d)
+    if np.any(step <= 0):
+        return (), ()
+    slope = np.abs(np.diff(ph) / step)
     mid = 0.5 * (d[1:] + d[:-1])
     floor = 3.0 * np.median(slope)
     found_d: list[float] = []
