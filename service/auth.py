@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import hmac
-from collections.abc import Callable
+from collections.abc import Awaitable, Callable
 
 from fastapi import Security
 from fastapi.security import APIKeyHeader
@@ -22,11 +22,11 @@ _scheme = APIKeyHeader(
 )
 
 
-def api_key_dependency(expected: str | None) -> Callable[[str | None], None]:
+def api_key_dependency(expected: str | None) -> Callable[[str | None], Awaitable[None]]:
     """A dependency that checks ``X-API-Key`` against ``expected`` (no check when None)."""
     want = expected.encode() if expected else None
 
-    def check(key: str | None = Security(_scheme)) -> None:
+    async def check(key: str | None = Security(_scheme)) -> None:
         if want is None:
             return
         given = (key or "").encode()

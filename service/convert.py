@@ -4,21 +4,14 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable
+from typing import Any
 
 from models.results import EquilibriumResult
 from models.stream import CustomSystem, Entry, StreamSpec
 
-from service.schemas import (
-    Alkalinity,
-    Calibration,
-    EquilibriumResponse,
-    ModelInfo,
-    Species,
-    Stream,
-    SystemFractions,
-)
+from service.schemas import EquilibriumResponse, Stream
 
-__all__ = ["NonFiniteResult", "require_finite", "from_spec", "to_spec", "to_response"]
+__all__ = ["NonFiniteResult", "require_finite", "from_spec", "to_spec", "to_response", "response_dict"]
 
 
 class NonFiniteResult(RuntimeError):
@@ -97,59 +90,69 @@ def _check_finite(r: EquilibriumResult) -> None:
         raise NonFiniteResult("the solver returned a non-finite number in a result")
 
 
-def to_response(r: EquilibriumResult, service_version: str) -> EquilibriumResponse:
-    """The HTTP response for one solved stream; refuses non-finite numbers."""
+def response_dict(r: EquilibriumResult, service_version: str) -> dict[str, Any]:
+    """The HTTP response for one solved stream as plain JSON-ready data; refuses non-finite numbers.
+
+    Exactly what ``EquilibriumResponse(...).model_dump(mode="json")`` gives (same keys,
+    order and leaf types; ``tests/test_service_fast_json.py`` pins it), without building
+    a pydantic model per species: batches serialise these dicts once with orjson.
+    """
     _check_finite(r)
     a = r.alkalinity
     cal = r.calibration
-    return EquilibriumResponse(
-        ph=r.ph,
-        temperature_c=r.temperature_c,
-        ionic_strength_mol_l=r.ionic_strength_mol_l,
-        buffer_capacity_mmol_l_per_ph=r.buffer_capacity_mmol_l_per_ph,
-        alkalinity=Alkalinity(
-            total_meq_l=a.total_meq_l,
-            total_mg_l_as_caco3=a.total_mg_l_as_caco3,
-            total_endpoint_ph=a.total_endpoint_ph,
-            phenolphthalein_meq_l=a.phenolphthalein_meq_l,
-            phenolphthalein_mg_l_as_caco3=a.phenolphthalein_mg_l_as_caco3,
-            phenolphthalein_endpoint_ph=a.phenolphthalein_endpoint_ph,
-        ),
-        species=[
-            Species(
-                name=s.name,
-                charge=s.charge,
-                mol_l=s.mol_l,
-                activity=s.activity,
-                activity_coefficient=s.activity_coefficient,
-            )
+    return {
+        "ph": r.ph,
+        "temperature_c": r.temperature_c,
+        "ionic_strength_mol_l": r.ionic_strength_mol_l,
+        "buffer_capacity_mmol_l_per_ph": r.buffer_capacity_mmol_l_per_ph,
+        "alkalinity": {
+            "total_meq_l": a.total_meq_l,
+            "total_mg_l_as_caco3": a.total_mg_l_as_caco3,
+            "total_endpoint_ph": a.total_endpoint_ph,
+            "phenolphthalein_meq_l": a.phenolphthalein_meq_l,
+            "phenolphthalein_mg_l_as_caco3": a.phenolphthalein_mg_l_as_caco3,
+            "phenolphthalein_endpoint_ph": a.phenolphthalein_endpoint_ph,
+        },
+        "species": [
+            {
+                "name": s.name,
+                "charge": s.charge,
+                "mol_l": s.mol_l,
+                "activity": s.activity,
+                "activity_coefficient": s.activity_coefficient,
+            }
             for s in r.species
         ],
-        systems=[
-            SystemFractions(
-                name=s.name,
-                total_mol_l=s.total_mol_l,
-                fractions=dict(s.fractions),
-                open_to_gas=s.open_to_gas,
-            )
+        "systems": [
+            {
+                "name": s.name,
+                "total_mol_l": s.total_mol_l,
+                "fractions": dict(s.fractions),
+                "open_to_gas": bool(s.open_to_gas),
+            }
             for s in r.systems
         ],
-        charge_balance_residual_mol_l=r.charge_balance_residual_mol_l,
-        calcite_saturation_index=r.calcite_saturation_index,
-        langelier_index=r.langelier_index,
-        conductivity_estimate_us_cm=r.conductivity_estimate_us_cm,
-        calibration=None
+        "charge_balance_residual_mol_l": r.charge_balance_residual_mol_l,
+        "calcite_saturation_index": r.calcite_saturation_index,
+        "langelier_index": r.langelier_index,
+        "conductivity_estimate_us_cm": r.conductivity_estimate_us_cm,
+        "calibration": None
         if cal is None
-        else Calibration(
-            balance_on=cal.balance_on,
-            added_mol_l=cal.added_mol_l,
-            carbonate_from_alkalinity_mol_l=cal.carbonate_from_alkalinity_mol_l,
-        ),
-        warnings=list(r.warnings),
-        model=ModelInfo(
-            database_version=r.database_version,
-            activity_model=r.activity_model,
-            solver_iterations=r.iterations,
-            service_version=service_version,
-        ),
-    )
+        else {
+            "balance_on": cal.balance_on,
+            "added_mol_l": cal.added_mol_l,
+            "carbonate_from_alkalinity_mol_l": cal.carbonate_from_alkalinity_mol_l,
+        },
+        "warnings": list(r.warnings),
+        "model": {
+            "database_version": r.database_version,
+            "activity_model": r.activity_model,
+            "solver_iterations": int(r.iterations),
+            "service_version": service_version,
+        },
+    }
+
+
+def to_response(r: EquilibriumResult, service_version: str) -> EquilibriumResponse:
+    """The HTTP response model for one solved stream; refuses non-finite numbers."""
+    return EquilibriumResponse.model_validate(response_dict(r, service_version))

@@ -3,19 +3,22 @@
 from __future__ import annotations
 
 import logging
+from typing import Any
 
+import anyio.to_thread
+import orjson
 from fastapi import APIRouter, Depends
+from fastapi.responses import Response
 
 from models.results import StreamFailure
 
 from service.checks import structural_errors
-from service.convert import NonFiniteResult, to_response, to_spec
+from service.convert import NonFiniteResult, response_dict, to_spec
 from service.deps import batch_cap, require_json, require_ready
 from service.openapi import ERROR_RESPONSES
 from service.problems import FieldError, ProblemError, make_problem, summarise
 from service.schemas import (
     BatchItemError,
-    BatchItemOk,
     BatchRequest,
     BatchResponse,
     EquilibriumResponse,
@@ -24,7 +27,7 @@ from service.schemas import (
 from service.solving import Solver
 from service.state import AppState
 
-__all__ = ["equilibrium_router", "failure_problem"]
+__all__ = ["equilibrium_router", "failure_problem", "json_response"]
 
 _log = logging.getLogger("protolyte.errors")
 
@@ -43,6 +46,20 @@ def failure_problem(failure: StreamFailure, prefix: str) -> BatchItemError:
     return BatchItemError(ok=False, error=make_problem(422, slug, failure.message, errors=errors, reason=reason))
 
 
+def json_response(content: Any) -> Response:
+    """``application/json`` from plain data, serialised once by orjson.
+
+    The routes build exactly their declared ``response_model``'s JSON form as dicts
+    (``service.convert.response_dict``) and return this, so FastAPI neither builds nor
+    re-validates a pydantic model per species; ``response_model`` still documents them.
+    """
+    return Response(orjson.dumps(content), media_type="application/json")
+
+
+def _item_error(problem: BatchItemError) -> dict[str, Any]:
+    return problem.model_dump(mode="json")
+
+
 def equilibrium_router(solver: Solver, batch_max_items: int) -> APIRouter:
     """The equilibrium routes bound to ``solver``."""
     router = APIRouter(tags=["equilibrium"])
@@ -55,13 +72,13 @@ def equilibrium_router(solver: Solver, batch_max_items: int) -> APIRouter:
         responses=ERROR_RESPONSES,
         dependencies=[Depends(require_json)],
     )
-    async def solve_equilibrium(stream: Stream, state: AppState = Depends(require_ready)) -> EquilibriumResponse:
+    async def solve_equilibrium(stream: Stream, state: AppState = Depends(require_ready)) -> Response:
         """pH, speciation, ionic strength, buffer capacity and alkalinity of one stream."""
         errors = structural_errors(stream)
         if errors:
             raise ProblemError(422, summarise(errors), slug="validation-error", errors=errors)
         result = await solver.solve(to_spec(stream))
-        return to_response(result, state.version)
+        return json_response(response_dict(result, state.version))
 
     @router.post(
         "/v1/equilibrium/batch",
@@ -73,33 +90,39 @@ def equilibrium_router(solver: Solver, batch_max_items: int) -> APIRouter:
     )
     async def solve_equilibrium_batch(
         batch: BatchRequest, state: AppState = Depends(require_ready)
-    ) -> BatchResponse:
+    ) -> Response:
         """Solve every item with one vectorized core call; an item that fails, fails alone, in place."""
-        slots: list[BatchItemOk | BatchItemError | None] = [None] * len(batch.items)
+        slots: list[dict[str, Any] | None] = [None] * len(batch.items)
         to_solve: list[int] = []
         for i, stream in enumerate(batch.items):
             errors = structural_errors(stream, prefix=f"/items/{i}")
             if errors:
                 problem = make_problem(422, "validation-error", summarise(errors), errors=errors)
-                slots[i] = BatchItemError(ok=False, error=problem)
+                slots[i] = _item_error(BatchItemError(ok=False, error=problem))
                 solver.metrics.observe_failure("invalid_input")
             else:
                 to_solve.append(i)
         results = await solver.solve_many([to_spec(batch.items[i]) for i in to_solve]) if to_solve else []
-        for i, r in zip(to_solve, results):
-            if isinstance(r, StreamFailure):
-                slots[i] = failure_problem(r, prefix=f"/items/{i}")
-                continue
-            try:
-                slots[i] = BatchItemOk(ok=True, result=to_response(r, state.version))
-            except NonFiniteResult:
-                _log.error("non-finite result from the core", extra={"error_type": "NonFiniteResult"})
-                slots[i] = BatchItemError(
-                    ok=False,
-                    error=make_problem(500, "internal-error", "The solver produced a non-finite number for this item (a defect, logged)."),
-                )
-        out = [s for s in slots if s is not None]
-        failed = sum(1 for s in out if isinstance(s, BatchItemError))
-        return BatchResponse(results=out, succeeded=len(out) - failed, failed=failed)
+
+        def encode() -> bytes:  # in a worker thread: a 10 000-item answer is ~25 MB of JSON
+            failed = len(batch.items) - len(to_solve)
+            for i, r in zip(to_solve, results):
+                if isinstance(r, StreamFailure):
+                    slots[i] = _item_error(failure_problem(r, prefix=f"/items/{i}"))
+                    failed += 1
+                    continue
+                try:
+                    slots[i] = {"ok": True, "result": response_dict(r, state.version)}
+                except NonFiniteResult:
+                    _log.error("non-finite result from the core", extra={"error_type": "NonFiniteResult"})
+                    slots[i] = _item_error(BatchItemError(
+                        ok=False,
+                        error=make_problem(500, "internal-error", "The solver produced a non-finite number for this item (a defect, logged)."),
+                    ))
+                    failed += 1
+            out = [s for s in slots if s is not None]
+            return orjson.dumps({"results": out, "succeeded": len(out) - failed, "failed": failed})
+
+        return Response(await anyio.to_thread.run_sync(encode), media_type="application/json")
 
     return router
