@@ -23,7 +23,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from models.derived import buffer_capacity
-from models.equilibrium import solve_arrays
+from models.equilibrium import failure_message, solve_arrays
 from models.errors import InputError, SolveError, UnreachableSetpoint
 from models.reagents import Reagent
 from models.prepare import Assembled, ParsedStream, parse_stream
@@ -505,7 +505,7 @@ def dose_curve(
     if bad.any():
         k = int(np.argmax(bad))
         raise SolveError(
-            f"the curve leaves the model at {doses[k] * 1e3:.4g} mmol/L (pH range {PH_MIN:g}–{PH_MAX:g})",
+            f"at {doses[k] * 1e3:.4g} mmol/L of {reagent.name}: {failure_message(int(st.status[k]))}",
             "curve_outside_model",
         )
     beta = buffer_capacity(shifted, st.ph, st.ionic_strength) * asm.density_kg_l
