@@ -9,7 +9,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 from numpy.typing import NDArray
 
-from models.activity import DAVIES, IDEAL, log_gamma
+from models.activity import IDEAL, log_gamma
 from models.masses import formula_mass_g_mol
 from models.prepare import CARBONATE
 from models.results import Alkalinity
@@ -180,7 +180,6 @@ def _conductivity(sv: Solved, db: ThermoDatabase) -> list[float | None]:
     limiting law for water at 25 °C, in the data file). Ions without a λ° are skipped."""
     b1, b2 = db.onsager_limiting_law_25c()
     asm, p, st = sv.assembled, sv.problem, sv.state
-    n = st.ph.shape[0]
     sqrt_i = np.sqrt(np.maximum(st.ionic_strength, 0.0))
     corr = sqrt_i / (1.0 + sqrt_i)
     rho = asm.density_kg_l

@@ -35,13 +35,8 @@ from models.solver import (
     MAX_OUTER,
     OK,
     PH_MAX,
-    PH_MIN,
     BalanceProblem,
-    balance,
-    gammas,
-    ionic_strength_of,
     solve_balance,
-    species_state,
 )
 from models import water
 from models.stream import Entry, StreamSpec

@@ -15,7 +15,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from models import derived
-from models.derived import PHENOLPHTHALEIN_ENDPOINT_PH, TOTAL_ENDPOINT_PH
+from models.derived import TOTAL_ENDPOINT_PH
 from models.activity import VALIDITY_LIMIT_MOL_KG
 from models.calibration import close_at_ph
 from models.errors import InputError, SolveError
@@ -248,7 +248,6 @@ class _Tables:
 def _result(
     j: int, sv: Solved, ex: derived.Derived, tb: _Tables, db: ThermoDatabase
 ) -> EquilibriumResult | StreamFailure:
-    st = sv.state
     parsed_warn: list[str] = sv.warnings[j] + list(ex.warnings[j])
     if sv.calibration_error[j] == CALIBRATION_NOT_CONVERGED:
         # The numerics failed for a valid input: a solve failure, not an input error.
