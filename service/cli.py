@@ -51,7 +51,7 @@ def build_parser() -> argparse.ArgumentParser:
     solve.add_argument("input", type=Path, help="JSON (list of streams), CSV (one stream per row) or, with --mapping, a historian export (CSV or Parquet)")
     solve.add_argument("--output", type=Path, help="output file (default: standard output); with --dask/--scheduler, a directory of part-NNNNN.csv files")
     solve.add_argument("--format", choices=("csv", "json"), help="output format (default: that of the input; --mapping writes CSV)")
-    solve.add_argument("--chunk-size", type=int, help="rows solved per core call (default 5000; 50000 with --mapping)")
+    solve.add_argument("--chunk-size", type=int, help="rows solved per core call (default 5000; 20000 with --mapping)")
     solve.add_argument("--mapping", type=Path, help="historian mapping file (YAML or JSON): which column is which composition entry, unit, default")
     solve.add_argument("--dask", action="store_true", help="with --mapping: run on a local Dask cluster of worker processes on 127.0.0.1")
     solve.add_argument("--scheduler", metavar="ADDRESS", help="with --mapping: run on the Dask cluster at ADDRESS (tcp://host:port; 'local' = --dask)")
@@ -121,15 +121,15 @@ def _openapi(args: argparse.Namespace) -> int:
 
 
 def _solve(args: argparse.Namespace) -> int:
-    from service import backfill
-    from service.core import default_core
-    from service.state import service_version
-
     if args.chunk_size is not None and args.chunk_size < 1:
         print("protolyte: --chunk-size must be at least 1", file=sys.stderr)
         return 2
     if args.mapping is not None:
         return _solve_historian(args)
+    from service import backfill
+    from service.core import default_core
+    from service.state import service_version
+
     if args.dask or args.scheduler:
         print("protolyte: --dask/--scheduler need a historian --mapping file", file=sys.stderr)
         return 2
@@ -178,7 +178,7 @@ def _solve(args: argparse.Namespace) -> int:
 def _solve_historian(args: argparse.Namespace) -> int:
     from service import historian
 
-    chunk = args.chunk_size or 50_000
+    chunk = args.chunk_size or 20_000
     if args.format == "json":
         print("protolyte: --mapping writes CSV (--format json is for stream files)", file=sys.stderr)
         return 2

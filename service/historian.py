@@ -332,7 +332,7 @@ def _warnings(
 ) -> list[str]:
     """Per-row warnings (the same conditions the per-stream solve warns about)."""
     n = t.size
-    parts: list[list[str]] = [[] for _ in range(n)]
+    parts: dict[int, list[str]] = {}  # only the rows that have warnings
     db = load_database()
     for name in names:
         sysd = db.systems.get(name)
@@ -343,22 +343,33 @@ def _warnings(
                 continue
             outside = (t < step.fit.tmin_c) | (t > step.fit.tmax_c)
             for i in np.flatnonzero(outside & ok):
-                parts[i].append(f"{name}: pK{k + 1} is extrapolated beyond the temperature range of its fit")
+                parts.setdefault(int(i), []).append(f"{name}: pK{k + 1} is extrapolated beyond the temperature range of its fit")
     if mapping.co2_partial_pressure_atm is not None and "carbonate" in names:
         for i in np.flatnonzero(ok):
-            parts[i].append("the carbonate total of the analysis is replaced by equilibrium with the gas phase")
+            parts.setdefault(int(i), []).append("the carbonate total of the analysis is replaced by equilibrium with the gas phase")
     ph = res["ph"]
     for i in np.flatnonzero(ok & (ph < TOTAL_ENDPOINT_PH)):
-        parts[i].append(f"pH is below the {TOTAL_ENDPOINT_PH} end point: total alkalinity is 0 (mineral acidity)")
+        parts.setdefault(int(i), []).append(f"pH is below the {TOTAL_ENDPOINT_PH} end point: total alkalinity is 0 (mineral acidity)")
     limit = VALIDITY_LIMIT_MOL_KG[mapping.activity_model]
     # ionic strength of the solver is molal; the result column is per litre (÷ density ≈ 1).
     ionic = res["ionic_strength_mol_kg"]
     for i in np.flatnonzero(ok & (ionic > limit)):
-        parts[i].append(
+        parts.setdefault(int(i), []).append(
             f"ionic strength {ionic[i]:.3g} mol/kg is above the {limit:g} mol/kg validity limit "
             f"of the {mapping.activity_model} activity model: treat the pH as approximate"
         )
-    return [" | ".join(p) for p in parts]
+    out = [""] * n
+    for i, p in parts.items():
+        out[i] = " | ".join(p)
+    return out
+
+
+def _csv_column(cells: Sequence[str]) -> list[str]:
+    """Cells of a passed-through column, quoted where CSV needs it."""
+    joined = "".join(cells)
+    if any(c in joined for c in ',"\r\n'):
+        return [_csv_cell(c) for c in cells]
+    return list(cells)
 
 
 def _csv_cell(text: str) -> str:
@@ -373,7 +384,7 @@ def solve_rows(rows: list[list[str]], header: Sequence[str], mapping: Mapping_, 
     width = len(header)
     bad: dict[int, list[tuple[str, str]]] = {}
     ragged: dict[int, list[tuple[str, str]]] = {}
-    if any(len(r) != width for r in rows):
+    if set(map(len, rows)) - {width}:
         for i, r in enumerate(rows):
             if len(r) != width:
                 ragged[i] = [("(row)", f"has {len(r)} fields, the header has {width}")]
@@ -409,35 +420,37 @@ def solve_rows(rows: list[list[str]], header: Sequence[str], mapping: Mapping_, 
         status = res["status"]
         solved = status == STATUS_MESSAGES[0]
         warn = _warnings(mapping, [e.name for e in mapping.composition], temperature[gi], out_cols, solved)
+    # Output, column by column (no per-row Python beyond one join per line).
+    blank = np.full(n, "", dtype=object)
+    lead = [_csv_column(cell[c]) for c in (mapping.timestamp, *mapping.passthrough)]
+    numbers = [str(first_row + i) for i in range(n)]
+    ok_all = np.zeros(n, dtype=bool)
+    out_txt: dict[str, NDArray] = {c: blank.copy() for c in RESULT_COLUMNS[2:]}
     errors: list[RowError] = []
-    lines: list[str] = []
-    pass_idx = [index[c] for c in (mapping.timestamp, *mapping.passthrough)]
-    k = 0
-    codes = {v: c for c, v in STATUS_MESSAGES.items()}
-    nums = [out_cols[c] for c in _NUMERIC_OUT] if gi.size else []
-    iters = out_cols["iterations"] if gi.size else []
-    fmt = ",".join([_FLOAT] * len(_NUMERIC_OUT))
-    for i in range(n):
-        r = rows[i]
-        lead = ",".join(_csv_cell(r[j]) for j in pass_idx)
+    for i, reasons in sorted(bad.items()):
         number = first_row + i
-        if not good[i]:
-            reasons = bad[i]
-            cols_txt = "; ".join(dict.fromkeys(c for c, _ in reasons))
-            detail = "; ".join(f"{c}: {why}" for c, why in reasons)
-            for c, why in reasons:
-                errors.append(RowError(number, c, why))
-            lines.append(f"{lead},{number},false,,,,,,,,,validation-error,{_csv_cell(cols_txt)},{_csv_cell(detail)}")
-            continue
-        s = status[k]
-        if s != "ok":
+        errors.extend(RowError(number, c, why) for c, why in reasons)
+        out_txt["error_type"][i] = "validation-error"
+        out_txt["error_field"][i] = _csv_cell("; ".join(dict.fromkeys(c for c, _ in reasons)))
+        out_txt["error_detail"][i] = _csv_cell("; ".join(f"{c}: {why}" for c, why in reasons))
+    if gi.size:
+        codes = {v: c for c, v in STATUS_MESSAGES.items()}
+        solved_rows = gi[solved]
+        ok_all[solved_rows] = True
+        for c in _NUMERIC_OUT:
+            out_txt[c][solved_rows] = [_FLOAT % v for v in out_cols[c][solved].tolist()]
+        out_txt["solver_iterations"][gi] = [str(v) for v in out_cols["iterations"].tolist()]
+        out_txt["warnings"][gi] = [_csv_cell(w) if w else "" for w in warn]
+        for k in np.flatnonzero(~solved):
+            i, s = int(gi[k]), str(status[k])
             why = f"{s}: {failure_message(codes[s])}"
-            errors.append(RowError(number, "(stream)", why, "solve-failed"))
-            lines.append(f"{lead},{number},false,,,,,,,{int(iters[k])},,solve-failed,,{_csv_cell(why)}")
-        else:
-            vals = fmt % tuple(float(a[k]) for a in nums)
-            lines.append(f"{lead},{number},true,{vals},{int(iters[k])},{_csv_cell(warn[k])},,,")
-        k += 1
+            errors.append(RowError(first_row + i, "(stream)", why, "solve-failed"))
+            out_txt["error_type"][i] = "solve-failed"
+            out_txt["error_detail"][i] = _csv_cell(why)
+        errors.sort(key=lambda e: e.row)
+    ok_txt = np.where(ok_all, "true", "false").tolist()
+    columns = [*lead, numbers, ok_txt, *(out_txt[c].tolist() for c in RESULT_COLUMNS[2:])]
+    lines = list(map(",".join, zip(*columns)))
     return ChunkResult("\n".join(lines) + ("\n" if lines else ""), n, errors)
 
 

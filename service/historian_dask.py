@@ -154,14 +154,21 @@ def _client(scheduler: str | None, n_workers: int) -> tuple[Any, Any]:
             "--dask/--scheduler need dask[distributed]: pip install -c constraints.txt -e '.[backfill]'"
         ) from None
     if scheduler in (None, "local"):
-        cluster = LocalCluster(
-            n_workers=n_workers,
-            threads_per_worker=1,
-            processes=True,
-            host="127.0.0.1",
-            dashboard_address=None,
-            silence_logs=40,
-        )
+        import dask
+
+        # Dask sets MALLOC_TRIM_THRESHOLD_ in its workers; that fixes glibc's mmap threshold,
+        # so every large numpy temporary is a fresh mmap: the column solve ran 2× slower.
+        environ = dict(dask.config.get("distributed.nanny.pre-spawn-environ", {}))
+        environ.pop("MALLOC_TRIM_THRESHOLD_", None)
+        with dask.config.set({"distributed.nanny.pre-spawn-environ": environ}):
+            cluster = LocalCluster(
+                n_workers=n_workers,
+                threads_per_worker=1,
+                processes=True,
+                host="127.0.0.1",
+                dashboard_address="127.0.0.1:0",  # its HTTP server: loopback, any free port
+                silence_logs=40,
+            )
         return Client(cluster), cluster
     return Client(scheduler), None
 
