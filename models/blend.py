@@ -80,6 +80,8 @@ def blend(
     if len(models) > 1:
         warnings.append(f"streams use different activity models; the mixture uses {specs[0].activity_model}")
     temperature = sum(q * s.temperature_c for q, s in zip(flows, specs)) / total_q
+    # a weighted mean lies within its inputs; round-off must not push 100 °C to 100.00000000000001
+    temperature = min(max(temperature, min(s.temperature_c for s in specs)), max(s.temperature_c for s in specs))
     mixed = StreamSpec(
         composition=tuple(Entry(name, value, "mol/L") for name, value in mix.items()),
         temperature_c=temperature,

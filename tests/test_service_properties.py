@@ -28,7 +28,7 @@ from hypothesis import strategies as st
 
 from models.blend import blend
 from models.equilibrium import solve
-from models.stream import StreamSpec
+from models.stream import Entry, StreamSpec
 from service.app import create_app
 from service.settings import Settings
 
@@ -73,6 +73,16 @@ def test_a_blend_of_a_stream_with_itself_is_the_stream(spec: StreamSpec, q1: flo
     assert mine.keys() == theirs.keys()
     for name, total in theirs.items():
         assert mine[name] == pytest.approx(total, rel=1e-12), name
+
+
+@pytest.mark.parametrize("temperature", [0.0, 100.0])
+def test_a_blend_at_the_end_of_the_temperature_range_stays_in_it(temperature: float) -> None:
+    # Found by the property above: (0.7·100 + 0.1·100)/0.8 = 100.00000000000001 °C was
+    # refused as "the mixture does not solve: temperature must be between 0 and 100 °C".
+    spec = StreamSpec((Entry("carbonate", 1.0, "mmol/L"),), temperature_c=temperature)
+    mixed = blend([(0.7, spec), (0.1, spec)])
+    assert mixed.result.temperature_c == temperature
+    assert mixed.result.ph == pytest.approx(solve(spec).ph, abs=1e-9)
 
 
 @HTTP_PROFILE
