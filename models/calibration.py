@@ -13,6 +13,8 @@ Ionic strength is iterated to self-consistency with both unknowns.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 from numpy.typing import NDArray
 
@@ -29,12 +31,6 @@ from models.solver import (
 )
 
 __all__ = ["close_at_ph"]
-
-
-def _with(p: BalanceProblem, **changes: NDArray) -> BalanceProblem:
-    fields = {k: getattr(p, k) for k in p.__dataclass_fields__}
-    fields.update(changes)
-    return BalanceProblem(**fields)
 
 
 def close_at_ph(
@@ -70,12 +66,12 @@ def close_at_ph(
         if has_alk.any():
             # Alkalinity is linear in the carbonate total at fixed γ: A = A0 + C_T · dA.
             total[rows[has_alk], slot[has_alk]] = 0.0
-            p0 = _with(base, total=total)
+            p0 = replace(base, total=total)
             f_s0, *_ = balance(p0, ph, lg, lh, loh)
             f_e0, *_ = balance(p0, np.full(n, endpoint_ph), lg, lh, loh)
             unit = np.zeros_like(total)
             unit[rows, slot] = 1.0
-            p1 = _with(base, total=unit)
+            p1 = replace(base, total=unit)
             m_s1 = species_state(p1, ph, lg, lh, loh)[0]
             m_e1 = species_state(p1, np.full(n, endpoint_ph), lg, lh, loh)[0]
             d_unit = ((m_e1 - m_s1) * base.charge).sum(axis=(1, 2))
@@ -83,7 +79,7 @@ def close_at_ph(
                 c_t = (alkalinity_eq_kg - (f_e0 - f_s0)) / d_unit
             carb = np.where(has_alk, c_t, 0.0)
             total[rows[has_alk], slot[has_alk]] = np.maximum(carb[has_alk], 0.0)
-        work = _with(base, total=total)
+        work = replace(base, total=total)
         f, _, _, m, m_h, m_oh = balance(work, ph, lg, lh, loh)
         with np.errstate(divide="ignore", invalid="ignore"):
             added = np.where(balance_charge != 0, -f / np.where(balance_charge == 0, 1.0, balance_charge), 0.0)
@@ -93,7 +89,7 @@ def close_at_ph(
         ionic = ionic_new
         if converged.all():
             break
-    final = _with(
+    final = replace(
         work,
         strong_charge=work.strong_charge + balance_charge * added,
         strong_ionic=work.strong_ionic + balance_charge**2 * added,

@@ -25,6 +25,7 @@ from models.derived import (
 from models.errors import InputError
 from models.fractions import cumulative_pk
 from models.masses import formula_mass_g_mol
+from models.prepare import water_terms
 from models.solver import STATUS_MESSAGES, BalanceProblem, BalanceState, solve_balance
 from models.thermo import ThermoDatabase, load_database
 
@@ -111,12 +112,8 @@ def problem_from_columns(
     problem = BalanceProblem(
         strong_charge=strong_charge,
         strong_ionic=strong_ionic,
-        pkw=np.asarray(db.pkw(t), dtype=float),
-        a_dh=np.asarray(water.debye_huckel_a(t), dtype=float),
-        b_dh=np.asarray(water.debye_huckel_b(t), dtype=float),
         activity_code=np.full(n, model_code(activity_model)),
-        size_h=np.full(n, db.ion_size("H+")),
-        size_oh=np.full(n, db.ion_size("OH-")),
+        **water_terms(np.ascontiguousarray(t), db),
         total=total,
         is_open=is_open,
         open_neutral=open_neutral,

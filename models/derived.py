@@ -3,7 +3,7 @@ saturation, Langelier index and a conductivity estimate. All vectorized per batc
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -69,20 +69,13 @@ def buffer_capacity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArray[n
     return beta
 
 
-def _closed(p: BalanceProblem, m: NDArray) -> BalanceProblem:
-    fields = {k: getattr(p, k) for k in p.__dataclass_fields__}
-    fields["total"] = m.sum(axis=-1)
-    fields["is_open"] = np.zeros_like(p.is_open)
-    return BalanceProblem(**fields)
-
-
 def alkalinity_eq_kg(
     p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, loh: NDArray, endpoint_ph: float
 ) -> NDArray[np.float64]:
     """Strong acid [eq/kg] that takes the sample (closed, as in a titration vessel) from
     ``ph`` to ``endpoint_ph``, activity coefficients held at the sample's values."""
     m, _, _ = species_state(p, ph, lg, lh, loh)
-    closed = _closed(p, m)
+    closed = replace(p, total=m.sum(axis=-1), is_open=np.zeros_like(p.is_open))
     f_s, *_ = balance(closed, ph, lg, lh, loh)
     f_e, *_ = balance(closed, np.full_like(ph, endpoint_ph), lg, lh, loh)
     return f_e - f_s

@@ -147,11 +147,13 @@ def _direction(asm: Assembled, reagent: Reagent, db: ThermoDatabase) -> tuple[ND
 
 
 def _shift(p: BalanceProblem, d: NDArray, dc: NDArray, di: NDArray, dt: NDArray) -> BalanceProblem:
-    fields = {k: getattr(p, k) for k in p.__dataclass_fields__}
-    fields["strong_charge"] = p.strong_charge + d * dc
-    fields["strong_ionic"] = p.strong_ionic + d * di
-    fields["total"] = p.total + d[:, None] * dt
-    return BalanceProblem(**fields)
+    """The problem after a dose ``d`` [mol/L] along the reagent's direction."""
+    return replace(
+        p,
+        strong_charge=p.strong_charge + d * dc,
+        strong_ionic=p.strong_ionic + d * di,
+        total=p.total + d[:, None] * dt,
+    )
 
 
 def dose_at_ph(

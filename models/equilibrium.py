@@ -85,22 +85,14 @@ def _state_at_fixed_ph(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> Balanc
     return BalanceState(ph, ionic, lg, lh, loh, f, scale, np.ones(n, dtype=int), np.zeros(n, dtype=int))
 
 
-def _merge(full: BalanceState, idx: NDArray, part: BalanceState) -> BalanceState:
+def _scatter(full, idx: NDArray, part):
+    """A copy of the dataclass of arrays ``full`` with rows ``idx`` taken from ``part``."""
     out = {}
     for name in full.__dataclass_fields__:
         arr = getattr(full, name).copy()
         arr[idx] = getattr(part, name)
         out[name] = arr
-    return BalanceState(**out)
-
-
-def _replace(p: BalanceProblem, idx: NDArray, part: BalanceProblem) -> BalanceProblem:
-    out = {}
-    for name in p.__dataclass_fields__:
-        arr = getattr(p, name).copy()
-        arr[idx] = getattr(part, name)
-        out[name] = arr
-    return BalanceProblem(**out)
+    return type(full)(**out)
 
 
 def solve_arrays(parsed: list[ParsedStream], db: ThermoDatabase) -> Solved:
@@ -132,7 +124,7 @@ def solve_arrays(parsed: list[ParsedStream], db: ThermoDatabase) -> Solved:
             carbonate_slot=carb_slot[fixed],
             endpoint_ph=TOTAL_ENDPOINT_PH,
         )
-        p = _replace(p, fixed, sub)
+        p = _scatter(p, fixed, sub)
         added[fixed] = add_f
         carb[fixed] = np.where(carb_slot[fixed] >= 0, carb_f, np.nan)
         for j, i in enumerate(fixed):
@@ -143,10 +135,10 @@ def solve_arrays(parsed: list[ParsedStream], db: ThermoDatabase) -> Solved:
     pinned = np.nonzero(bal != 0)[0]
     state = _state_at_fixed_ph(p, np.where(np.isnan(measured), 7.0, measured), np.zeros(n))
     if free.size:
-        state = _merge(state, free, solve_balance(p.take(free)))
+        state = _scatter(state, free, solve_balance(p.take(free)))
     if pinned.size:
         pos = np.searchsorted(fixed, pinned)
-        state = _merge(state, pinned, _state_at_fixed_ph(p.take(pinned), measured[pinned], ionic_fixed[pos]))
+        state = _scatter(state, pinned, _state_at_fixed_ph(p.take(pinned), measured[pinned], ionic_fixed[pos]))
     return Solved(
         asm, p, state, added, carb, errors,
         [s.balance_on for s in parsed], [list(s.warnings) for s in parsed],

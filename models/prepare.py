@@ -27,7 +27,7 @@ from models.solver import BalanceProblem
 from models.stream import ACTIVITY_MODELS, BALANCE_IONS, StreamSpec
 from models.thermo import SystemData, ThermoDatabase
 
-__all__ = ["ALKALINITY", "ParsedStream", "parse_stream", "assemble", "Assembled"]
+__all__ = ["ALKALINITY", "ParsedStream", "parse_stream", "assemble", "Assembled", "water_terms"]
 
 ALKALINITY = "alkalinity"
 CARBONATE = "carbonate"
@@ -273,12 +273,8 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
     problem = BalanceProblem(
         strong_charge=strong_m @ charges,
         strong_ionic=strong_m @ (charges * charges),
-        pkw=np.asarray(db.pkw(temp), dtype=float),
-        a_dh=np.asarray(water.debye_huckel_a(temp), dtype=float),
-        b_dh=np.asarray(water.debye_huckel_b(temp), dtype=float),
         activity_code=np.array([model_code(p.activity_model) for p in parsed], dtype=int),
-        size_h=np.full(n, db.ion_size("H+")),
-        size_oh=np.full(n, db.ion_size("OH-")),
+        **water_terms(temp, db),
         total=total,
         is_open=is_open,
         open_neutral=open_neutral,
@@ -287,6 +283,19 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
         ion_size=size,
     )
     return Assembled(problem, temp, rho, strong_names, strong_m, [p.systems for p in parsed], lam0)
+
+
+def water_terms(temperature_c: NDArray, db: ThermoDatabase) -> dict[str, NDArray]:
+    """The per-stream water constants of a BalanceProblem at each temperature [°C]:
+    pKw, Debye–Hückel A and B, and the ion sizes of H+ and OH− [Å]."""
+    n = temperature_c.shape[0]
+    return {
+        "pkw": np.asarray(db.pkw(temperature_c), dtype=float),
+        "a_dh": np.asarray(water.debye_huckel_a(temperature_c), dtype=float),
+        "b_dh": np.asarray(water.debye_huckel_b(temperature_c), dtype=float),
+        "size_h": np.full(n, db.ion_size("H+")),
+        "size_oh": np.full(n, db.ion_size("OH-")),
+    }
 
 
 _LAMBDA0: dict[tuple[int, int], list[float]] = {}
