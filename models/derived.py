@@ -62,10 +62,10 @@ def buffer_capacity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArray[n
         beta[idx] = -df
     if (~ideal).any():
         idx = np.nonzero(~ideal)[0]
-        sub = p.take(idx)
-        up, *_ = balance_at_ph(sub, ph[idx] + BETA_STEP_PH, 1.0, ionic_guess=ionic[idx])
-        down, *_ = balance_at_ph(sub, ph[idx] - BETA_STEP_PH, 1.0, ionic_guess=ionic[idx])
-        beta[idx] = (up - down) / (2 * BETA_STEP_PH)
+        both = np.concatenate([idx, idx])
+        at = np.concatenate([ph[idx] + BETA_STEP_PH, ph[idx] - BETA_STEP_PH])
+        x, *_ = balance_at_ph(p.take(both), at, 1.0, ionic_guess=ionic[both])
+        beta[idx] = (x[: idx.size] - x[idx.size :]) / (2 * BETA_STEP_PH)
     return beta
 
 

@@ -358,19 +358,17 @@ def balance_at_ph(
     titration curve read backwards).
     """
     z = float(added_charge)
+    kern = BalanceKernel(p)
     ionic = np.zeros_like(ph) if ionic_guess is None else ionic_guess.copy()
     x = np.zeros_like(ph)
     converged = p.activity_code == IDEAL
     for _ in range(MAX_OUTER):
-        lg, lh, loh = gammas(p, ionic)
-        f, _, _, m, m_h, m_oh = balance(p, ph, lg, lh, loh)
-        x = -f / z
-        ionic_new = ionic_strength_of(p, m, m_h, m_oh) + 0.5 * z * z * x
-        ionic_new = np.maximum(ionic_new, 0.0)
-        small = np.abs(ionic_new - ionic) <= I_ATOL + I_RTOL * ionic_new
-        ideal = p.activity_code == IDEAL
-        ionic = np.where(ideal, ionic_strength_of(p, m, m_h, m_oh) + 0.5 * z * z * np.abs(x), ionic_new)
-        converged = converged | small
-        if np.all(converged | ideal):
+        lg, lh, loh = kern.log_gammas(ionic)
+        _, _, base_i, pos, neg = kern.evaluate(ph, lg, lh, loh)
+        x = -(pos - neg) / z
+        new = np.maximum(base_i + 0.5 * z * z * x, 0.0)
+        converged = (p.activity_code == IDEAL) | (np.abs(new - ionic) <= I_ATOL + I_RTOL * new)
+        ionic = new
+        if converged.all():
             break
     return x, ionic, converged
