@@ -133,12 +133,15 @@ def solve_arrays(parsed: list[ParsedStream], db: ThermoDatabase) -> Solved:
             errors[i] = _calibration_error(parsed[i], add_f[j], carb_f[j], bool(conv[j]))
     free = np.nonzero(bal == 0)[0]
     pinned = np.nonzero(bal != 0)[0]
-    state = _state_at_fixed_ph(p, np.where(np.isnan(measured), 7.0, measured), np.zeros(n))
-    if free.size:
-        state = _scatter(state, free, solve_balance(p.take(free)))
-    if pinned.size:
+    if pinned.size == 0:
+        state = solve_balance(p)
+    else:
         pos = np.searchsorted(fixed, pinned)
-        state = _scatter(state, pinned, _state_at_fixed_ph(p.take(pinned), measured[pinned], ionic_fixed[pos]))
+        at_ph = _state_at_fixed_ph(p.take(pinned), measured[pinned], ionic_fixed[pos])
+        if free.size == 0:
+            state = at_ph
+        else:
+            state = _scatter(solve_balance(p), pinned, at_ph)
     return Solved(
         asm, p, state, added, carb, errors,
         [s.balance_on for s in parsed], [list(s.warnings) for s in parsed],
