@@ -99,7 +99,7 @@ _FILTRATE_EXAMPLE: dict[str, object] = {
     "custom_systems": [],
     "gas": {"co2_partial_pressure_atm": 0.00042},
     "measured_ph": 3.4,
-    "balance_on": "Cl-",
+    "balance_on": "Na+",
 }
 
 
