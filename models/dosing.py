@@ -75,8 +75,15 @@ class DosePlan:
     gain_ph_per_mol_l: float
     reachable_ph: tuple[float, float]
     already_met: bool
-    final_spec: StreamSpec
+    stream: StreamSpec
+    reagent: Reagent
     warnings: list[str] = field(default_factory=list)
+
+    @property
+    def final_spec(self) -> StreamSpec:
+        """The dosed stream as an analysis (built on demand: most batch callers need
+        only the numbers)."""
+        return dosed_spec(self.stream, self.reagent, self.dose_mol_l)
 
 
 @dataclass(frozen=True)
@@ -186,8 +193,13 @@ def dose_at_ph(
     return d, conv, ionic
 
 
-def _forward(p: BalanceProblem, d: NDArray, dc, di, dt) -> tuple[NDArray, NDArray, NDArray]:
-    st = solve_balance(_shift(p, d, dc, di, dt))
+def _forward(
+    p: BalanceProblem, d: NDArray, dc, di, dt, guess: NDArray | None = None,
+    ionic: NDArray | None = None,
+) -> tuple[NDArray, NDArray, NDArray]:
+    """pH, ionic strength and status of the streams after dose ``d`` [mol/L]; ``guess``
+    [pH] and ``ionic`` [mol/kg] warm-start the solve (it stays bracketed on the model range)."""
+    st = solve_balance(_shift(p, d, dc, di, dt), ph_guess=guess, ionic_guess=ionic)
     return st.ph, st.ionic_strength, st.status
 
 
@@ -391,7 +403,7 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     cation = _hydroxide_cation(reagent, db)
     if cation is not None:
         cap, ph_cap = _slurry_cap(reagent, cation, parsed, asm, p, ph0, dc, di, dt, sv, cap, ph_cap, db)
-    dose, conv, _ = dose_at_ph(p, sp, dc, di, dt, sv.state.ionic_strength)
+    dose, conv, dosed_i = dose_at_ph(p, sp, dc, di, dt, sv.state.ionic_strength)
     # The reagent moves the pH from the stream's own pH toward the pH at the limit dose:
     # usually up for a base, but a weak one (NaHCO3) lowers an alkaline stream.
     lo, hi = np.minimum(ph0, ph_cap), np.maximum(ph0, ph_cap)
@@ -401,7 +413,10 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     hard = np.nonzero(~met & ~(ok_dose & conv) & (status0 == OK))[0]
     if hard.size:
         _resolve_along_path(p, hard, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, lo, hi)
-    final_ph, _, status_f = _forward(p, np.where(ok_dose, dose, 0.0), dc, di, dt)
+    final_ph, _, status_f = _forward(
+        p, np.where(ok_dose, dose, 0.0), dc, di, dt, guess=np.where(ok_dose & ~met, sp, ph0),
+        ionic=np.where(ok_dose & ~met, dosed_i, sv.state.ionic_strength),
+    )
     # A weak reagent's path can pass beyond both ends (not monotone): what it reached is
     # reachable.
     reached = ok_dose & (status_f == OK)
@@ -420,7 +435,7 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     if near.size:
         sub = p.take(near)
         for f in (1.0 - HIGH_GAIN_RULE[0], 1.0 + HIGH_GAIN_RULE[0]):
-            moved = _forward(sub, d_ok[near] * f, dc[near], di[near], dt[near])[0]
+            moved = _forward(sub, d_ok[near] * f, dc[near], di[near], dt[near], guess=final_ph[near])[0]
             swing[near] = np.maximum(swing[near], np.abs(moved - final_ph[near]))
     high = (d_ok > 0) & (swing > HIGH_GAIN_RULE[1])
     for j, i in enumerate(where):
@@ -470,7 +485,8 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
             gain_ph_per_mol_l=g,
             reachable_ph=reach,
             already_met=bool(met[j]),
-            final_spec=dosed_spec(specs[j], reagent, d),
+            stream=specs[j],
+            reagent=reagent,
             warnings=warnings,
         )
 

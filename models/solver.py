@@ -257,7 +257,9 @@ class BalanceKernel:
         return g, dg, ionic, pos, neg
 
 
-def solve_balance(p: BalanceProblem, ph_guess: NDArray | None = None) -> BalanceState:
+def solve_balance(
+    p: BalanceProblem, ph_guess: NDArray | None = None, ionic_guess: NDArray | None = None
+) -> BalanceState:
     """Solve every stream's charge balance with self-consistent ionic strength.
 
     One loop does both: a bracketed Newton step on G(pH) with the activity coefficients
@@ -272,7 +274,7 @@ def solve_balance(p: BalanceProblem, ph_guess: NDArray | None = None) -> Balance
     ph = np.full(n, 7.0) if ph_guess is None else np.clip(ph_guess, PH_MIN + 0.01, PH_MAX - 0.01)
     lo, hi = np.full(n, PH_MIN), np.full(n, PH_MAX)
     ideal = p.activity_code == IDEAL
-    ionic = np.where(ideal, 0.0, 0.5 * p.strong_ionic)
+    ionic = np.where(ideal, 0.0, 0.5 * p.strong_ionic if ionic_guess is None else ionic_guess)
     iters = np.zeros(n, dtype=int)
     done = np.zeros(n, dtype=bool)
     rows = np.arange(n)
