@@ -6,7 +6,7 @@ then runs, each as its own process, the in-process path and the Dask path (a loc
 cluster of worker processes on 127.0.0.1), and prints rows/s and the peak RSS of the
 in-process run (memory stays bounded by the chunk size, not the file size).
 
-    python tests/benchmarks/bench_backfill.py [--rows 1000000] [--chunk-size 50000] [--workers 2]
+    python tests/benchmarks/bench_backfill.py [--rows 1000000] [--chunk-size 20000] [--workers 2]
 """
 
 from __future__ import annotations
@@ -74,7 +74,7 @@ def run(cmd: list[str]) -> tuple[float, str]:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--rows", type=int, default=1_000_000)
-    ap.add_argument("--chunk-size", type=int, default=50_000)
+    ap.add_argument("--chunk-size", type=int, default=20_000)
     ap.add_argument("--workers", type=int, default=2)
     args = ap.parse_args()
     protolyte = [sys.executable, "-m", "service.cli", "solve"]
