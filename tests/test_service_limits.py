@@ -232,7 +232,12 @@ def _requirements(extra: str | None = None) -> list[Requirement]:
     return [Requirement(r) for r in raw]
 
 
-@pytest.mark.parametrize("extra", [None, "serve", "test"])
+def _extras() -> list[str]:
+    return sorted(tomllib.loads((ROOT / "pyproject.toml").read_text(encoding="utf-8"))["project"]
+                  .get("optional-dependencies", {}))
+
+
+@pytest.mark.parametrize("extra", [None, *_extras()])
 def test_every_dependency_of_pyproject_is_pinned_in_constraints_within_its_range(extra: str | None) -> None:
     pins = _pins()
     for req in _requirements(extra):
