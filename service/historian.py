@@ -53,23 +53,23 @@ from models.units import UNITS
 __all__ = [
     "RESULT_COLUMNS",
     "VALUE_MAX",
-    "ColumnSpec",
-    "Mapping_",
-    "MappingError",
-    "RowError",
     "ChunkResult",
+    "ColumnSpec",
+    "MappingError",
+    "Mapping_",
+    "Progress",
+    "RowError",
+    "RunSummary",
+    "describe",
+    "is_parquet",
     "load_mapping",
-    "parse_mapping",
     "output_header",
-    "solve_rows",
-    "solve_text",
+    "parse_mapping",
     "read_csv_chunks",
     "read_parquet_chunks",
-    "is_parquet",
-    "describe",
-    "Progress",
     "run_local",
-    "RunSummary",
+    "solve_rows",
+    "solve_text",
 ]
 
 #: Largest composition value accepted [in its unit], as in the HTTP schema.
@@ -308,7 +308,7 @@ def _parse_column(
                 values[i] = np.nan
                 continue
         checked = np.ones(len(cells), dtype=bool)
-        checked[list(i for i in bad if any(c == column for c, _ in bad[i]))] = False
+        checked[[i for i in bad if any(c == column for c, _ in bad[i])]] = False
     else:
         checked = np.ones(len(cells), dtype=bool)
     finite = np.isfinite(values)
@@ -516,9 +516,7 @@ def _parquet_rows(batch: Any, header: Sequence[str]) -> list[list[str]]:
     cols: list[list[str]] = []
     for name in header:
         col = batch.column(name)
-        if pa.types.is_timestamp(col.type) or pa.types.is_date(col.type):
-            col = pc.cast(col, pa.string())
-        elif not pa.types.is_string(col.type) and not pa.types.is_large_string(col.type):
+        if not (pa.types.is_string(col.type) or pa.types.is_large_string(col.type)):  # numbers, timestamps
             col = pc.cast(col, pa.string())
         cols.append(["" if v is None else v for v in col.to_pylist()])
     return [list(r) for r in zip(*cols)] if cols else []

@@ -42,7 +42,7 @@ from service.historian import (
     solve_text,
 )
 
-__all__ = ["Partition", "plan_csv", "plan_parquet", "solve_partition", "run_dask", "part_name", "DaskUnavailable"]
+__all__ = ["DaskUnavailable", "Partition", "part_name", "plan_csv", "plan_parquet", "run_dask", "solve_partition"]
 
 _SCAN_BLOCK = 1 << 24  # 16 MiB read at a time while placing partitions
 
@@ -72,7 +72,7 @@ def _open(path: str, mode: str = "rb") -> Any:
         import fsspec
 
         return fsspec.open(path, mode).open()
-    return open(path, mode)  # noqa: SIM115 - closed by the caller's with
+    return open(path, mode)
 
 
 def plan_csv(path: str, rows_per_partition: int) -> tuple[list[str], list[Partition]]:
