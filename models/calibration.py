@@ -77,16 +77,18 @@ def close_at_ph(
             d_unit = ((m_e1 - m_s1) * base.charge).sum(axis=(1, 2))
             with np.errstate(divide="ignore", invalid="ignore"):
                 c_t = (alkalinity_eq_kg - (f_e0 - f_s0)) / d_unit
-            carb = np.where(has_alk, c_t, 0.0)
+            carb = np.where(converged, carb, np.where(has_alk, c_t, 0.0))
             total[rows[has_alk], slot[has_alk]] = np.maximum(carb[has_alk], 0.0)
         work = replace(base, total=total)
         f, _, _, m, m_h, m_oh = balance(work, ph, lg, lh, loh)
         with np.errstate(divide="ignore", invalid="ignore"):
-            added = np.where(balance_charge != 0, -f / np.where(balance_charge == 0, 1.0, balance_charge), 0.0)
+            added_now = np.where(balance_charge != 0, -f / np.where(balance_charge == 0, 1.0, balance_charge), 0.0)
+        # Converged rows keep their values: a stream's answer must not depend on its batch.
+        added = np.where(converged, added, added_now)
         ionic_new = ionic_strength_of(work, m, m_h, m_oh) + 0.5 * np.abs(added) * balance_charge**2
         small = np.abs(ionic_new - ionic) <= I_ATOL + I_RTOL * ionic_new
-        converged = small | (base.activity_code == IDEAL)
-        ionic = ionic_new
+        ionic = np.where(converged, ionic, ionic_new)
+        converged = converged | small | (base.activity_code == IDEAL)
         if converged.all():
             break
     final = replace(

@@ -178,16 +178,19 @@ def dose_at_ph(
     ionic = ionic0.copy()
     d = np.zeros_like(ph)
     conv = np.zeros(ph.shape, dtype=bool)
+    ideal = p.activity_code == IDEAL
     for _ in range(MAX_OUTER):
         lg, lh, loh = kern.log_gammas(ionic)
         _, _, i0, pos, neg, zbar, z2bar = kern.evaluate(ph, lg, lh, loh, slot_means=True)
         df = dc + (dt * zbar).sum(axis=1)
         with np.errstate(divide="ignore", invalid="ignore"):
-            d = np.where(df != 0, -(pos - neg) / df, np.nan)
+            d_now = np.where(df != 0, -(pos - neg) / df, np.nan)
+        d = np.where(conv, d, d_now)  # converged rows keep their answer (batch-independent)
         dd = np.nan_to_num(d)
         new = np.maximum(i0 + 0.5 * dd * (di + (dt * z2bar).sum(axis=1)), 0.0)
-        conv = (p.activity_code == IDEAL) | (np.abs(new - ionic) <= I_ATOL + I_RTOL * new)
-        ionic = new
+        now = ideal | (np.abs(new - ionic) <= I_ATOL + I_RTOL * new)
+        ionic = np.where(conv, ionic, new)
+        conv |= now
         if conv.all():
             break
     return d, conv, ionic

@@ -363,14 +363,18 @@ def balance_at_ph(
     kern = BalanceKernel(p)
     ionic = np.zeros_like(ph) if ionic_guess is None else ionic_guess.copy()
     x = np.zeros_like(ph)
-    converged = p.activity_code == IDEAL
+    ideal = p.activity_code == IDEAL
+    converged = np.zeros(ph.shape, dtype=bool)
     for _ in range(MAX_OUTER):
         lg, lh, loh = kern.log_gammas(ionic)
         _, _, base_i, pos, neg = kern.evaluate(ph, lg, lh, loh)
-        x = -(pos - neg) / z
+        # A row that has converged keeps its values: a stream's answer must not depend
+        # on which other streams share its batch.
+        x = np.where(converged, x, -(pos - neg) / z)
         new = np.maximum(base_i + 0.5 * z * z * x, 0.0)
-        converged = (p.activity_code == IDEAL) | (np.abs(new - ionic) <= I_ATOL + I_RTOL * new)
-        ionic = new
+        now = ideal | (np.abs(new - ionic) <= I_ATOL + I_RTOL * new)
+        ionic = np.where(converged, ionic, new)
+        converged |= now
         if converged.all():
             break
     return x, ionic, converged

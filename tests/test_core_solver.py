@@ -71,3 +71,24 @@ def test_a_converged_stream_is_not_moved_by_slower_streams_of_its_batch() -> Non
     # (before the fix the ionic strength differed in the 15th digit).
     assert batched.ph == alone.ph
     assert batched.ionic_strength_mol_l == alone.ionic_strength_mol_l
+
+
+def test_a_stream_gets_the_same_answer_whatever_shares_its_batch() -> None:
+    # Iterations stop per stream, so neither pH nor the activity-corrected buffer capacity
+    # (an iterated quantity too) may depend on the other streams of the batch.
+    from models.equilibrium import solve_many
+    from models.stream import Entry, StreamSpec
+
+    target = StreamSpec(
+        (Entry("Na+", 3.1, "mmol/L"), Entry("carbonate", 2.2, "mmol/L"), Entry("Cl-", 0.7, "mmol/L")),
+        temperature_c=19.0,
+    )
+    others = [
+        StreamSpec((Entry("Na+", 40.0 * k, "mmol/L"), Entry("sulfate", 9.0 * k, "mmol/L")), 60.0)
+        for k in range(1, 6)
+    ]
+    alone = solve_many([target])[0]
+    mixed = solve_many(others[:3] + [target] + others[3:])[3]
+    assert mixed.ph == alone.ph
+    assert mixed.buffer_capacity_mmol_l_per_ph == alone.buffer_capacity_mmol_l_per_ph
+    assert mixed.alkalinity == alone.alkalinity
