@@ -13,7 +13,7 @@ from models.activity import IDEAL, log_gamma
 from models.masses import formula_mass_g_mol
 from models.prepare import CARBONATE
 from models.results import Alkalinity
-from models.solver import BalanceProblem, balance, balance_at_ph, species_state
+from models.solver import BalanceKernel, BalanceProblem, balance, species_state
 
 if TYPE_CHECKING:
     from models.equilibrium import Solved
@@ -49,7 +49,7 @@ def buffer_capacity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArray[n
     Ideal solutions: the analytic sum ln10·([H+] + [OH−] + Σ T·Var(z)) (Van Slyke form;
     open systems add their gas uptake). With activity corrections: the derivative of the
     strong-base (Na+ / OH−) titration curve including its effect on ionic strength, by
-    a central difference of the base needed at pH ± δ.
+    implicit differentiation of the activity-corrected balance (``_beta_with_activity``).
     """
     beta = np.empty_like(ph)
     ideal = p.activity_code == IDEAL
@@ -62,11 +62,36 @@ def buffer_capacity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArray[n
         beta[idx] = -df
     if (~ideal).any():
         idx = np.nonzero(~ideal)[0]
-        both = np.concatenate([idx, idx])
-        at = np.concatenate([ph[idx] + BETA_STEP_PH, ph[idx] - BETA_STEP_PH])
-        x, *_ = balance_at_ph(p.take(both), at, 1.0, ionic_guess=ionic[both])
-        beta[idx] = (x[: idx.size] - x[idx.size :]) / (2 * BETA_STEP_PH)
+        beta[idx] = _beta_with_activity(p.take(idx), ph[idx], ionic[idx])
     return beta
+
+
+def _beta_with_activity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArray:
+    """dC_base/dpH along the Na+/OH− titration with ionic strength following the dose.
+
+    With X(pH, I) the base needed at fixed γ(I) and Ψ(pH, I) the ionic strength of the
+    sample's own species, adding base x obeys x = X and I = Ψ + x/2; implicit
+    differentiation gives dI/dpH = (Ψ_p + X_p/2)/(1 − Ψ_I − X_I/2) and
+    β = X_p + X_I·dI/dpH. The four partial derivatives are central differences from one
+    kernel evaluation of the stacked problem (no iteration).
+    """
+    n = ph.shape[0]
+    d_i = np.maximum(1e-6 * ionic, 1e-12)
+    rows = np.tile(np.arange(n), 4)
+    at_ph = np.concatenate([ph + BETA_STEP_PH, ph - BETA_STEP_PH, ph, ph])
+    at_i = np.concatenate([ionic, ionic, ionic + d_i, np.maximum(ionic - d_i, 0.0)])
+    kern = BalanceKernel(p.take(rows))
+    lg, lh, loh = kern.log_gammas(at_i)
+    _, _, psi, pos, neg = kern.evaluate(at_ph, lg, lh, loh)
+    x = (neg - pos).reshape(4, n)
+    psi = psi.reshape(4, n)
+    span_i = at_i[2 * n : 3 * n] - at_i[3 * n :]
+    x_p = (x[0] - x[1]) / (2 * BETA_STEP_PH)
+    psi_p = (psi[0] - psi[1]) / (2 * BETA_STEP_PH)
+    x_i = (x[2] - x[3]) / span_i
+    psi_i = (psi[2] - psi[3]) / span_i
+    di_dph = (psi_p + 0.5 * x_p) / (1.0 - psi_i - 0.5 * x_i)
+    return x_p + x_i * di_dph
 
 
 def alkalinity_eq_kg(
