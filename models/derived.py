@@ -72,20 +72,21 @@ def _beta_with_activity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArr
     With X(pH, I) the base needed at fixed γ(I) and Ψ(pH, I) the ionic strength of the
     sample's own species, adding base x obeys x = X and I = Ψ + x/2; implicit
     differentiation gives dI/dpH = (Ψ_p + X_p/2)/(1 − Ψ_I − X_I/2) and
-    β = X_p + X_I·dI/dpH. The four partial derivatives are central differences from one
-    kernel evaluation of the stacked problem (no iteration).
+    β = X_p + X_I·dI/dpH. The four partial derivatives are central differences from four
+    kernel evaluations (no iteration).
     """
-    n = ph.shape[0]
     d_i = np.maximum(1e-6 * ionic, 1e-12)
-    rows = np.tile(np.arange(n), 4)
-    at_ph = np.concatenate([ph + BETA_STEP_PH, ph - BETA_STEP_PH, ph, ph])
-    at_i = np.concatenate([ionic, ionic, ionic + d_i, np.maximum(ionic - d_i, 0.0)])
-    kern = BalanceKernel(p.take(rows))
-    lg, lh, loh = kern.log_gammas(at_i)
-    _, _, psi, pos, neg = kern.evaluate(at_ph, lg, lh, loh)
-    x = (neg - pos).reshape(4, n)
-    psi = psi.reshape(4, n)
-    span_i = at_i[2 * n : 3 * n] - at_i[3 * n :]
+    lo_i = np.maximum(ionic - d_i, 0.0)
+    kern = BalanceKernel(p)
+    x, psi = [], []
+    for at_ph, at_i in (
+        (ph + BETA_STEP_PH, ionic), (ph - BETA_STEP_PH, ionic), (ph, ionic + d_i), (ph, lo_i)
+    ):
+        lg, lh, loh = kern.log_gammas(at_i)
+        _, _, psi_k, pos, neg = kern.evaluate(at_ph, lg, lh, loh)
+        x.append(neg - pos)
+        psi.append(psi_k)
+    span_i = ionic + d_i - lo_i
     x_p = (x[0] - x[1]) / (2 * BETA_STEP_PH)
     psi_p = (psi[0] - psi[1]) / (2 * BETA_STEP_PH)
     x_i = (x[2] - x[3]) / span_i
