@@ -12,6 +12,7 @@ from fastapi import Depends, FastAPI
 from fastapi.middleware.cors import CORSMiddleware
 
 from service.auth import API_KEY_HEADER, api_key_dependency
+from service.coalesce import Coalescer
 from service.core import Core, default_core
 from service.logging import configure_logging
 from service.metrics import Metrics
@@ -48,6 +49,7 @@ def create_app(settings: Settings | None = None, core: Core | None = None) -> Fa
     core = core or default_core()
     state = AppState(core)
     metrics = Metrics(version=state.version)
+    coalescer = Coalescer(core.solve_many, settings.coalesce_max_batch) if settings.coalesce else None
 
     @asynccontextmanager
     async def lifespan(_: FastAPI) -> AsyncIterator[None]:
@@ -55,7 +57,13 @@ def create_app(settings: Settings | None = None, core: Core | None = None) -> Fa
         await anyio.to_thread.run_sync(state.ensure_loaded)
         metrics.set_build_info(str(state.database.version))
         _tune_gc()
-        yield
+        if coalescer is not None:
+            await coalescer.start()
+        try:
+            yield
+        finally:
+            if coalescer is not None:
+                await coalescer.stop()
 
     app = FastAPI(
         title="Protolyte",
@@ -69,7 +77,7 @@ def create_app(settings: Settings | None = None, core: Core | None = None) -> Fa
     install_problem_handlers(app)
 
     auth = [Depends(api_key_dependency(settings.api_key))]
-    solver = Solver(core, metrics, settings.solve_time_budget_s)
+    solver = Solver(core, metrics, settings.solve_time_budget_s, coalescer)
     app.include_router(equilibrium_router(solver, settings.batch_max_items), dependencies=auth)
     version = core.reagents_version() if core.reagents_version else None
     app.include_router(

@@ -11,6 +11,8 @@
 | ``PROTOLYTE_API_KEY`` | unset | when set, every ``/v1`` route needs header ``X-API-Key`` |
 | ``PROTOLYTE_CORS_ORIGINS`` | empty | comma-separated allowed origins; empty = CORS closed |
 | ``PROTOLYTE_SOLVE_TIME_BUDGET_S`` | ``10`` | wall-clock budget of one request's solve [s] |
+| ``PROTOLYTE_COALESCE`` | ``1`` | ``1``: concurrent single-stream solves share one vectorized call; ``0``: each alone |
+| ``PROTOLYTE_COALESCE_MAX_BATCH`` | ``256`` | most single-stream requests solved in one coalesced call |
 """
 
 from __future__ import annotations
@@ -42,6 +44,18 @@ def _int(env: Mapping[str, str], name: str, default: int, minimum: int) -> int:
     return value
 
 
+def _flag(env: Mapping[str, str], name: str, default: bool) -> bool:
+    raw = env.get(ENV_PREFIX + name)
+    if raw is None or raw.strip() == "":
+        return default
+    value = raw.strip().lower()
+    if value in ("1", "true", "yes", "on"):
+        return True
+    if value in ("0", "false", "no", "off"):
+        return False
+    raise SettingsError(f"{ENV_PREFIX}{name} must be 1 or 0, got {raw!r}")
+
+
 def _float(env: Mapping[str, str], name: str, default: float, minimum: float) -> float:
     raw = env.get(ENV_PREFIX + name)
     if raw is None or raw.strip() == "":
@@ -68,6 +82,8 @@ class Settings:
     api_key: str | None = field(default=None, repr=False)
     cors_origins: tuple[str, ...] = ()
     solve_time_budget_s: float = 10.0
+    coalesce: bool = True
+    coalesce_max_batch: int = 256
 
     def __post_init__(self) -> None:
         if self.log_level not in LOG_LEVELS:
@@ -78,6 +94,8 @@ class Settings:
             raise SettingsError(f"port must be 1-65535, got {self.port}")
         if not self.solve_time_budget_s > 0:
             raise SettingsError("solve_time_budget_s must be > 0")
+        if self.coalesce_max_batch < 1:
+            raise SettingsError("coalesce_max_batch must be >= 1")
 
     @classmethod
     def from_env(cls, env: Mapping[str, str] | None = None) -> Settings:
@@ -95,4 +113,6 @@ class Settings:
             api_key=key if key else None,
             cors_origins=tuple(o.strip() for o in origins.split(",") if o.strip()),
             solve_time_budget_s=_float(env, "SOLVE_TIME_BUDGET_S", 10.0, 0.001),
+            coalesce=_flag(env, "COALESCE", True),
+            coalesce_max_batch=_int(env, "COALESCE_MAX_BATCH", 256, 1),
         )

@@ -2,6 +2,8 @@
 
 The solve runs in a worker thread; when it outlives ``budget_s`` the request is
 answered 503 at once and the thread is abandoned (the core's iteration cap bounds it).
+With a running :class:`service.coalesce.Coalescer`, single-stream solves are queued and
+solved together in one vectorized call, under the same budget, metrics and errors.
 """
 
 from __future__ import annotations
@@ -16,11 +18,12 @@ from models.errors import InputError, ProtolyteError, SolveError, UnreachableSet
 from models.results import EquilibriumResult, StreamFailure
 from models.stream import StreamSpec
 
+from service.coalesce import Coalescer
 from service.core import Core
 from service.metrics import Metrics
 from service.problems import ProblemError
 
-__all__ = ["Solver", "failure_reason"]
+__all__ = ["Solver", "failure_error", "failure_reason"]
 
 T = TypeVar("T")
 
@@ -36,13 +39,23 @@ def failure_reason(exc: ProtolyteError) -> str:
     return "other"
 
 
+def failure_error(failure: StreamFailure) -> ProtolyteError:
+    """The exception ``core.solve`` raises for this failure of ``core.solve_many``."""
+    if failure.kind == "input":
+        return InputError(failure.message, failure.field)
+    return SolveError(failure.message, failure.reason)
+
+
 class Solver:
     """Core calls with a time budget and metrics."""
 
-    def __init__(self, core: Core, metrics: Metrics, budget_s: float) -> None:
+    def __init__(
+        self, core: Core, metrics: Metrics, budget_s: float, coalescer: Coalescer | None = None
+    ) -> None:
         self.core = core
         self.metrics = metrics
         self.budget_s = budget_s
+        self.coalescer = coalescer
 
     async def call(self, fn: Callable[[], T], what: str) -> T:
         """Run ``fn`` in a worker thread under the time budget; core errors are counted and re-raised."""
@@ -56,22 +69,40 @@ class Solver:
 
         return await self._run(run, what)
 
+    def _over_budget(self, what: str) -> ProblemError:
+        self.metrics.observe_failure("time_budget")
+        return ProblemError(
+            503,
+            f"The {what} did not finish within this server's time budget of "
+            f"{self.budget_s:g} s (PROTOLYTE_SOLVE_TIME_BUDGET_S); retry later or send fewer items.",
+            slug="time-budget-exceeded",
+            headers={"Retry-After": "1"},
+        )
+
     async def _run(self, fn: Callable[[], T], what: str) -> T:
         try:
             with anyio.fail_after(self.budget_s):
                 return await anyio.to_thread.run_sync(fn, abandon_on_cancel=True)
         except TimeoutError:
-            self.metrics.observe_failure("time_budget")
-            raise ProblemError(
-                503,
-                f"The {what} did not finish within this server's time budget of "
-                f"{self.budget_s:g} s (PROTOLYTE_SOLVE_TIME_BUDGET_S); retry later or send fewer items.",
-                slug="time-budget-exceeded",
-                headers={"Retry-After": "1"},
-            ) from None
+            raise self._over_budget(what) from None
+
+    async def _coalesced(self, coalescer: Coalescer, spec: StreamSpec) -> EquilibriumResult:
+        try:
+            with anyio.fail_after(self.budget_s):
+                outcome = await coalescer.submit(spec)
+        except TimeoutError:
+            raise self._over_budget("solve") from None
+        if isinstance(outcome, StreamFailure):
+            exc = failure_error(outcome)
+            self.metrics.observe_failure(failure_reason(exc))
+            raise exc
+        self.metrics.observe_solved(outcome.iterations)
+        return outcome
 
     async def solve(self, spec: StreamSpec) -> EquilibriumResult:
         """Solve one stream; core errors propagate (mapped to 422 by the problem handlers)."""
+        if self.coalescer is not None and self.coalescer.running:
+            return await self._coalesced(self.coalescer, spec)
 
         def run() -> EquilibriumResult:
             try:

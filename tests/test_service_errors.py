@@ -180,7 +180,10 @@ def test_defect_is_500_problem_without_internals(make_client: AppFactory, stream
             return equilibrium.solve(spec)
         raise RuntimeError("secret detail /srv/internal/path.py")
 
-    core = Core(solve=broken, solve_many=equilibrium.solve_many, load_database=thermo.load_database)
+    def broken_many(specs: Sequence[StreamSpec]) -> list[EquilibriumResult | StreamFailure]:
+        return [broken(s) for s in specs]  # the single route may coalesce into solve_many
+
+    core = Core(solve=broken, solve_many=broken_many, load_database=thermo.load_database)
     c = make_client(core=core, raise_server_exceptions=False)
     r = c.post("/v1/equilibrium", json=stream, headers={"X-Request-ID": "defect-1"})
     body = assert_problem(r, 500, "internal-error")

@@ -1,0 +1,161 @@
+"""Coalesce concurrent single-stream solves into one vectorized core call.
+
+``POST /v1/equilibrium`` costs the core a fixed few milliseconds per call, but only tens
+of microseconds per stream inside a batch (``solve_many`` is vectorized and a stream's
+answer does not depend on its batch). :class:`Coalescer` queues each request's
+:class:`~models.stream.StreamSpec` and one collector task, whenever the solver thread is
+free, takes everything queued (up to ``max_batch``) and solves it with ONE
+``solve_many`` call in a worker thread. There is no waiting window: while one group is
+solved, new requests queue for the next (natural batching).
+
+Each request's future gets its own outcome: an ``EquilibriumResult``, a
+``StreamFailure``, or an exception (a defect). When ``solve_many`` raises for a group,
+the group is re-solved stream by stream so that a stream that raises fails alone; the
+collector keeps running. Time budget, metrics and HTTP mapping stay with
+:class:`service.solving.Solver`.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import logging
+from collections import deque
+from collections.abc import Callable, Sequence
+
+import anyio.to_thread
+
+from models.results import EquilibriumResult, StreamFailure
+from models.stream import StreamSpec
+
+from service.problems import ProblemError
+
+__all__ = ["Coalescer", "Outcome", "SolveMany"]
+
+_log = logging.getLogger("protolyte.errors")
+
+#: One stream's outcome: a result, a core failure, or the exception of a defect.
+Outcome = EquilibriumResult | StreamFailure | BaseException
+SolveMany = Callable[[Sequence[StreamSpec]], list[EquilibriumResult | StreamFailure]]
+
+
+def _stopping() -> ProblemError:
+    return ProblemError(
+        503,
+        "The service is shutting down; retry on another instance or shortly.",
+        slug="not-ready",
+        headers={"Retry-After": "1"},
+    )
+
+
+class Coalescer:
+    """A queue of single-stream solves served by one collector task on the event loop."""
+
+    def __init__(self, solve_many: SolveMany, max_batch: int = 256) -> None:
+        if max_batch < 1:
+            raise ValueError("max_batch must be >= 1")
+        self._solve_many = solve_many
+        self.max_batch = max_batch
+        self._pending: deque[tuple[StreamSpec, asyncio.Future[Outcome]]] = deque()
+        self._inflight: list[asyncio.Future[Outcome]] = []
+        self._wake: asyncio.Event | None = None
+        self._task: asyncio.Task[None] | None = None
+        self._loop: asyncio.AbstractEventLoop | None = None
+
+    @property
+    def running(self) -> bool:
+        """True while the collector runs on the current event loop."""
+        if self._task is None or self._task.done():
+            return False
+        try:
+            return asyncio.get_running_loop() is self._loop
+        except RuntimeError:
+            return False
+
+    async def start(self) -> None:
+        """Start the collector task on the running loop (in the app lifespan)."""
+        if self.running:
+            return
+        self._loop = asyncio.get_running_loop()
+        self._wake = asyncio.Event()
+        self._task = self._loop.create_task(self._collect(), name="protolyte-coalescer")
+
+    async def stop(self) -> None:
+        """Stop the collector; queued and in-flight requests are answered 503 (never hang)."""
+        task, self._task = self._task, None
+        if task is not None:
+            task.cancel()
+            with contextlib.suppress(asyncio.CancelledError):
+                await task
+        for fut in self._inflight:
+            if not fut.done():
+                fut.set_exception(_stopping())
+        self._inflight = []
+        while self._pending:
+            _, fut = self._pending.popleft()
+            if not fut.done():
+                fut.set_exception(_stopping())
+
+    async def submit(self, spec: StreamSpec) -> EquilibriumResult | StreamFailure:
+        """Queue ``spec`` and wait for its outcome; a defect's exception is re-raised here."""
+        if not self.running or self._loop is None or self._wake is None:
+            raise RuntimeError("the coalescer is not running on this event loop")
+        fut: asyncio.Future[Outcome] = self._loop.create_future()
+        self._pending.append((spec, fut))
+        self._wake.set()
+        outcome = await fut
+        if isinstance(outcome, BaseException):
+            raise outcome
+        return outcome
+
+    def _take(self) -> list[tuple[StreamSpec, asyncio.Future[Outcome]]]:
+        group: list[tuple[StreamSpec, asyncio.Future[Outcome]]] = []
+        while self._pending and len(group) < self.max_batch:
+            item = self._pending.popleft()
+            if not item[1].done():  # skip requests that timed out or went away
+                group.append(item)
+        return group
+
+    async def _collect(self) -> None:
+        assert self._wake is not None
+        while True:
+            await self._wake.wait()
+            self._wake.clear()
+            while group := self._take():
+                self._inflight = [fut for _, fut in group]
+                specs = [spec for spec, _ in group]
+                try:
+                    outcomes = await anyio.to_thread.run_sync(self._solve_group, specs, abandon_on_cancel=True)
+                except Exception as exc:  # noqa: BLE001 -- a defect of the hop itself: fail this group only
+                    _log.error("coalesced solve failed", extra={"error_type": type(exc).__name__})
+                    outcomes = [exc] * len(specs)
+                for fut, outcome in zip(self._inflight, outcomes):
+                    if not fut.done():
+                        fut.set_result(outcome)
+                self._inflight = []
+
+    def _solve_group(self, specs: list[StreamSpec]) -> list[Outcome]:
+        """In a worker thread: one ``solve_many``; if it raises, each stream alone."""
+        try:
+            return self._checked(specs)
+        except Exception as exc:  # noqa: BLE001 -- any defect: re-solve so it fails alone
+            if len(specs) == 1:
+                return [exc]
+            _log.error(
+                "coalesced solve of %d streams raised; solving them one by one",
+                len(specs),
+                extra={"error_type": type(exc).__name__},
+            )
+        outcomes: list[Outcome] = []
+        for spec in specs:
+            try:
+                outcomes.extend(self._checked([spec]))
+            except Exception as exc:  # noqa: BLE001 -- answered as that request's 500
+                outcomes.append(exc)
+        return outcomes
+
+    def _checked(self, specs: list[StreamSpec]) -> list[Outcome]:
+        results = self._solve_many(specs)
+        if len(results) != len(specs):
+            raise RuntimeError(f"core returned {len(results)} results for {len(specs)} streams")
+        return list(results)
