@@ -249,8 +249,11 @@ class BalanceKernel:
         neg = self.strong_neg + m_oh + (s * szn).sum(axis=1)
         dpos = LN10 * (-m_h + (s * (szpj - szp * jbar)).sum(axis=1))
         dneg = LN10 * (m_oh + (s * (sznj - szn * jbar)).sum(axis=1))
-        g = np.log(pos) - np.log(neg)
-        dg = dpos / pos - dneg / neg
+        with np.errstate(divide="ignore", invalid="ignore"):
+            # P or N can underflow only for activity coefficients far outside any model
+            # (ionic strength ≫ 3 mol/kg); such a stream ends as a failure, not a result.
+            g = np.log(pos) - np.log(neg)
+            dg = dpos / pos - dneg / neg
         ionic = 0.5 * (p.strong_ionic + m_h + m_oh + (s * sz2).sum(axis=1))
         if slot_means:
             return g, dg, ionic, pos, neg, sz / m0, sz2 / m0
@@ -361,6 +364,7 @@ def _solve_slice(
     status[(status == OK) & (ph <= PH_MIN + 1e-6)] = BELOW_RANGE
     status[(status == OK) & (ph >= PH_MAX - 1e-6)] = ABOVE_RANGE
     status[(status == OK) & (ionic_actual > HARD_LIMIT_MOL_KG)] = IONIC_STRENGTH
+    status[(status == OK) & ~(np.isfinite(ph) & np.isfinite(ionic_actual) & np.isfinite(f))] = NOT_CONVERGED
     return BalanceState(
         ph=ph,
         ionic_strength=ionic_actual,
