@@ -184,6 +184,7 @@ class BalanceKernel:
         self.zpos = np.maximum(p.charge, 0.0)
         self.zposj = self.zpos * steps
         self.any_pos = bool(self.zpos.any())
+        self.top_max = float(self.top.max()) if self.top.size else 0.0
         self.any_open = bool(p.is_open.any())
         self.strong_pos = np.maximum(p.strong_charge, 0.0)
         self.strong_neg = np.maximum(-p.strong_charge, 0.0)
@@ -197,6 +198,7 @@ class BalanceKernel:
         for name in ("cum_ln10", "top", "z2", "zpos", "zposj", "strong_pos", "strong_neg"):
             setattr(k, name, getattr(self, name)[idx])
         k.any_pos = bool(k.zpos.any())
+        k.top_max = self.top_max
         k.any_open = bool(k.p.is_open.any())
         k.code = self.code
         return k
@@ -237,7 +239,11 @@ class BalanceKernel:
         sz = t * m0 - m1
         szj = t * m1 - m2
         sz2 = t * sz - szj
-        if self.any_pos:
+        if self.any_pos and self.top_max <= 1:
+            # Top charge +1 at most (ammonium-like): only species 0 is positive.
+            szp = w[..., 0] * np.maximum(t, 0.0)
+            szpj = np.zeros_like(sz)
+        elif self.any_pos:
             szp = np.einsum("nkp,nkp->nk", w, self.zpos)
             szpj = np.einsum("nkp,nkp->nk", w, self.zposj)
         else:
