@@ -25,14 +25,13 @@ import argparse  # noqa: E402
 import gc  # noqa: E402
 import random  # noqa: E402
 import sys  # noqa: E402
-import time  # noqa: E402
 from pathlib import Path  # noqa: E402
 
 import httpx  # noqa: E402
 import orjson  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from _server import ROOT, Server  # noqa: E402
+from _server import ROOT, Server, best  # noqa: E402
 
 sys.path.insert(0, str(ROOT))
 from models.equilibrium import solve_many  # noqa: E402
@@ -49,15 +48,6 @@ def items(n: int, seed: int = 6) -> list[dict]:
         ex["composition"] = [dict(e, value=e["value"] * rng.uniform(0.8, 1.2)) for e in ex["composition"]]
         out.append(ex)
     return out
-
-
-def best(fn, repeat: int) -> tuple[float, object]:
-    t_best, value = float("inf"), None
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        value = fn()
-        t_best = min(t_best, time.perf_counter() - t0)
-    return t_best, value
 
 
 def main() -> int:

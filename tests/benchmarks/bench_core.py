@@ -21,6 +21,7 @@ import time  # noqa: E402
 import numpy as np  # noqa: E402
 from scipy.optimize import brentq  # noqa: E402
 
+from _server import best  # noqa: E402
 from models.columns import problem_from_columns  # noqa: E402
 from models.solver import solve_balance  # noqa: E402
 
@@ -41,12 +42,7 @@ def columns(n: int, systems: tuple[str, ...], rng: np.random.Generator) -> dict:
 
 
 def timed(fn, repeat: int = 3) -> float:
-    best = math.inf
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        fn()
-        best = min(best, time.perf_counter() - t0)
-    return best
+    return best(fn, repeat)[0]
 
 
 def scalar_brentq_loop(batch, rows: np.ndarray) -> np.ndarray:

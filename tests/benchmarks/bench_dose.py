@@ -19,13 +19,13 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 import argparse  # noqa: E402
 import sys  # noqa: E402
-import time  # noqa: E402
 from collections import Counter  # noqa: E402
 from pathlib import Path  # noqa: E402
 
 import numpy as np  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+from _server import best  # noqa: E402
 from models.dosing import plan_doses  # noqa: E402
 from models.equilibrium import solve_many  # noqa: E402
 from models.reagents import load_reagents  # noqa: E402
@@ -48,15 +48,6 @@ def streams(n: int, seed: int = 6) -> list[StreamSpec]:
         StreamSpec(tuple(Entry(name, float(v[i]), "mmol/L") for name, v in cols.items()))
         for i in range(n)
     ]
-
-
-def best(fn, repeat: int) -> tuple[float, object]:
-    t_best, value = float("inf"), None
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        value = fn()
-        t_best = min(t_best, time.perf_counter() - t0)
-    return t_best, value
 
 
 def main() -> int:
