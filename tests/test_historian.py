@@ -10,7 +10,6 @@ import csv
 import json
 from pathlib import Path
 
-import numpy as np
 import pytest
 
 from models.equilibrium import solve_many
@@ -19,46 +18,8 @@ from service.cli import main
 from service.historian import Progress, load_mapping, solve_text
 from service.historian_dask import plan_csv
 
-MAPPING = """\
-# Ashcombe Fold dye works, final-effluent sump
-timestamp: Timestamp
-temperature_c: {column: TT-401.PV, default: 20.0}
-activity_model: davies
-passthrough: [Sample.Point]
-composition:
-  - {column: AI-401.NA, name: Na+, unit: mg/L}
-  - {column: AI-402.CA, name: Ca2+, unit: mg/L, default: 35.0}
-  - {column: AI-403.CL, name: Cl-, unit: mg/L}
-  - {column: AI-404.TIC, name: carbonate, unit: mmol/L}
-  - {column: AI-405.NH3, name: ammonia, unit: mg/L as N}
-  - {column: AI-406.SO4, name: sulfate, unit: mg/L}
-"""
-HEADER = "Timestamp,Sample.Point,TT-401.PV,AI-401.NA,AI-402.CA,AI-403.CL,AI-404.TIC,AI-405.NH3,AI-406.SO4"
-UNITS = {"Na+": "mg/L", "Ca2+": "mg/L", "Cl-": "mg/L", "carbonate": "mmol/L", "ammonia": "mg/L as N", "sulfate": "mg/L"}
-
-
-def _generate(path: Path, n: int, seed: int = 8) -> None:
-    """n minutes of the sump's historian export (vectorized, a few seconds for 10^6 rows)."""
-    rng = np.random.default_rng(seed)
-    minutes = np.arange(n)
-    day = np.sin(2 * np.pi * minutes / 1440.0)
-    cols = [
-        14.0 + 6.0 * day + rng.normal(0, 0.3, n),  # TT-401 [°C]
-        60 + 25 * day + rng.normal(0, 3, n),  # Na+ [mg/L]
-        38 + rng.normal(0, 2, n),  # Ca2+ [mg/L]
-        85 + 30 * day + rng.normal(0, 4, n),  # Cl- [mg/L]
-        np.abs(2.2 + 0.6 * day + rng.normal(0, 0.1, n)),  # TIC [mmol/L]
-        np.abs(1.2 + rng.normal(0, 0.2, n)),  # NH3-N [mg/L]
-        np.abs(48 + rng.normal(0, 5, n)),  # SO4 [mg/L]
-    ]
-    stamps = np.datetime_as_string(np.datetime64("2024-01-01T00:00") + minutes.astype("timedelta64[m]"))
-    table = np.column_stack([np.char.mod("%.4g", c) for c in cols])
-    with path.open("w", encoding="utf-8", newline="") as out:
-        out.write(HEADER + "\n")
-        block = 100_000
-        for a in range(0, n, block):
-            lines = [f"{s}Z,sump," + ",".join(r) for s, r in zip(stamps[a:a + block], table[a:a + block].tolist())]
-            out.write("\n".join(lines) + "\n")
+from demo_sump import HEADER, MAPPING, UNITS  # noqa: E402
+from demo_sump import generate as _generate  # noqa: E402
 
 
 def _mapping(tmp_path: Path, text: str = MAPPING) -> Path:
