@@ -31,7 +31,6 @@ __all__ = [
     "BalanceProblem",
     "BalanceState",
     "solve_balance",
-    "balance_at_ph",
     "species_state",
     "gammas",
     "balance",
@@ -382,38 +381,3 @@ def _solve_slice(
         iterations=iters,
         status=status,
     )
-
-
-def balance_at_ph(
-    p: BalanceProblem,
-    ph: NDArray,
-    added_charge: float,
-    *,
-    ionic_guess: NDArray | None = None,
-) -> tuple[NDArray, NDArray, NDArray]:
-    """Amount x [mol/kg] of a strong ion of charge ``added_charge`` that closes the
-    balance at the given pH, with ionic strength self-consistent including x.
-
-    Returns (x, ionic strength [mol/kg], converged). Used for calibration to a measured
-    pH and for the buffer capacity with activity corrections (x(pH) is the strong-base
-    titration curve read backwards).
-    """
-    z = float(added_charge)
-    kern = BalanceKernel(p)
-    ionic = np.zeros_like(ph) if ionic_guess is None else ionic_guess.copy()
-    x = np.zeros_like(ph)
-    ideal = p.activity_code == IDEAL
-    converged = np.zeros(ph.shape, dtype=bool)
-    for _ in range(MAX_OUTER):
-        lg, lh, loh = kern.log_gammas(ionic)
-        _, _, base_i, pos, neg = kern.evaluate(ph, lg, lh, loh)
-        # A row that has converged keeps its values: a stream's answer must not depend
-        # on which other streams share its batch.
-        x = np.where(converged, x, -(pos - neg) / z)
-        new = np.maximum(base_i + 0.5 * z * z * x, 0.0)
-        now = ideal | (np.abs(new - ionic) <= I_ATOL + I_RTOL * new)
-        ionic = np.where(converged, ionic, new)
-        converged |= now
-        if converged.all():
-            break
-    return x, ionic, converged
