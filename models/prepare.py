@@ -14,6 +14,7 @@ under 1 % below about 0.1 mol/L of dissolved salts.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+import math
 from functools import lru_cache
 
 import numpy as np
@@ -61,25 +62,69 @@ def _factor(
     )
 
 
-def _amount(value: float, unit: str, kind: str, formula: str, charge: int, atoms: dict, name: str) -> float:
-    return value * _factor(unit, kind, formula, charge, tuple(sorted(atoms.items())), name)
-
-
 def _system_for(name: str, customs: dict[str, SystemData], db: ThermoDatabase) -> SystemData | None:
     return customs.get(name) or db.systems.get(name)
 
 
+@lru_cache(maxsize=1024)
+def _density(t: float) -> float:
+    """Density of water [kg/L] at ``t`` [°C], cached: a batch repeats a few temperatures."""
+    return float(water.density_kg_l(t))
+
+
+#: Per database: (name, unit) -> (strong ion or None, system or None, factor, per kg),
+#: for built-in names whose unit converted without error (errors are never cached).
+_ENTRY_PLANS: dict[int, tuple[ThermoDatabase, dict]] = {}
+#: Per database: (system name, temperature) -> extrapolation warnings of a built-in system.
+_EXTRAPOLATED: dict[int, tuple[ThermoDatabase, dict]] = {}
+
+
+def _per_db(store: dict[int, tuple[ThermoDatabase, dict]], db: ThermoDatabase) -> dict:
+    got = store.get(id(db))
+    if got is None or got[0] is not db:
+        got = store[id(db)] = (db, {})
+    return got[1]
+
+
+def _entry_plan(name: str, unit: str, customs: dict[str, SystemData], db: ThermoDatabase, where: str):
+    """What an entry is and its unit factor; raise InputError naming the field at fault."""
+    ion = db.strong_ions.get(name)
+    system = _system_for(name, customs, db)
+    try:
+        if ion is not None:
+            factor = _factor(unit, "strong_ion", ion.formula, ion.charge, (), name)
+        elif system is not None:
+            factor = _factor(
+                unit, "system", system.mass_formula, 0, tuple(sorted(system.as_atoms.items())), name
+            )
+        elif name == ALKALINITY:
+            factor = _factor(unit, "alkalinity", "CaCO3", 0, (), name)
+        else:
+            raise InputError(
+                f"unknown species or system {name!r}: use a strong ion, a built-in system "
+                "(see GET /v1/systems), 'alkalinity', or declare it in custom_systems",
+                where + "/name",
+            )
+    except InputError as exc:
+        raise InputError(exc.message, exc.field or where + "/unit") from None
+    return ion, system, factor, units.is_per_kg(unit)
+
+
 def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
-    """Check and convert one stream; raise InputError naming the field at fault."""
+    """Check and convert one stream; raise InputError naming the field at fault.
+
+    Per-stream Python is kept to the checks themselves: unit factors, the name lookup
+    of built-in entries, the water density and the extrapolation warnings are cached
+    (per database, unit and temperature)."""
     t = float(spec.temperature_c)
-    if not (np.isfinite(t) and 0.0 <= t <= 100.0):
+    if not (math.isfinite(t) and 0.0 <= t <= 100.0):
         raise InputError("temperature must be between 0 and 100 °C", "/temperature_c")
     if spec.activity_model not in ACTIVITY_MODELS:
         raise InputError(
             f"unknown activity model {spec.activity_model!r}; use one of {', '.join(ACTIVITY_MODELS)}",
             "/activity_model",
         )
-    rho = float(water.density_kg_l(t))
+    rho = _density(t)
     customs: dict[str, SystemData] = {}
     for i, cs in enumerate(spec.custom_systems):
         where = f"/custom_systems/{i}"
@@ -93,40 +138,32 @@ def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
             raise InputError(exc.message, where + "/pka") from None
     if not spec.composition:
         raise InputError("the composition is empty: give at least one ion or system", "/composition")
+    plans = _per_db(_ENTRY_PLANS, db)
     strong: dict[str, float] = {}
     systems: list[SystemData] = []
     totals: list[float] = []
     alkalinity: float | None = None
     seen: set[str] = set()
     for i, entry in enumerate(spec.composition):
-        where = f"/composition/{i}"
         name = entry.name
         if name in seen:
-            raise InputError(f"{name} appears twice in the composition", where + "/name")
+            raise InputError(f"{name} appears twice in the composition", f"/composition/{i}/name")
         seen.add(name)
         value = float(entry.value)
-        if not np.isfinite(value) or value < 0.0:
-            raise InputError(f"{name}: the amount must be a finite number ≥ 0", where + "/value")
-        ion = db.strong_ions.get(name)
-        system = _system_for(name, customs, db)
+        if not (math.isfinite(value) and value >= 0.0):
+            raise InputError(f"{name}: the amount must be a finite number ≥ 0", f"/composition/{i}/value")
+        key = (name, entry.unit)
         try:
-            if ion is not None:
-                amount = _amount(value, entry.unit, "strong_ion", ion.formula, ion.charge, {}, name)
-            elif system is not None:
-                amount = _amount(
-                    value, entry.unit, "system", system.mass_formula, 0, system.as_atoms, name
-                )
-            elif name == ALKALINITY:
-                amount = _amount(value, entry.unit, "alkalinity", "CaCO3", 0, {}, name)
-            else:
-                raise InputError(
-                    f"unknown species or system {name!r}: use a strong ion, a built-in system "
-                    "(see GET /v1/systems), 'alkalinity', or declare it in custom_systems",
-                    where + "/name",
-                )
-        except InputError as exc:
-            raise InputError(exc.message, exc.field or where + "/unit") from None
-        molal = float(amount) if units.is_per_kg(entry.unit) else float(amount) / rho
+            plan = plans.get(key) if name not in customs else None
+        except TypeError:  # an unhashable unit: the checks below name the fault
+            plan = key = None
+        if plan is None:
+            plan = _entry_plan(name, entry.unit, customs, db, f"/composition/{i}")
+            if key is not None and name not in customs:
+                plans[key] = plan
+        ion, system, factor, per_kg = plan
+        amount = value * factor
+        molal = float(amount) if per_kg else float(amount) / rho
         if ion is not None:
             strong[name] = molal
         elif system is not None:
@@ -136,7 +173,7 @@ def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
                 raise InputError(
                     f"{name}: {molal:.3g} mol/kg of water is more than {HARD_LIMIT_MOL_KG:g} mol/kg, "
                     "beyond every activity model offered here; check the value and its unit",
-                    where + "/value",
+                    f"/composition/{i}/value",
                 )
             systems.append(system)
             totals.append(molal)
@@ -149,6 +186,23 @@ def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
                 "/custom_systems",
             )
     return _finish(spec, db, t, rho, strong, systems, totals, alkalinity)
+
+
+def _extrapolation_warnings(s: SystemData, t: float, db: ThermoDatabase) -> tuple[str, ...]:
+    def build() -> tuple[str, ...]:
+        return tuple(
+            f"{s.name}: pK{k + 1} is extrapolated beyond the temperature range of its fit"
+            for k in s.extrapolated_steps(t)
+        )
+
+    if not s.builtin:
+        return build()
+    cache = _per_db(_EXTRAPOLATED, db)
+    key = (s.name, t)
+    got = cache.get(key)
+    if got is None:
+        got = cache[key] = build()
+    return got
 
 
 def _finish(
@@ -189,10 +243,7 @@ def _finish(
             totals.append(0.0)
             open_slot = len(systems) - 1
     for s in systems:
-        for k in s.extrapolated_steps(t):
-            warnings.append(
-                f"{s.name}: pK{k + 1} is extrapolated beyond the temperature range of its fit"
-            )
+        warnings.extend(_extrapolation_warnings(s, t, db))
     return ParsedStream(
         temperature_c=t,
         activity_model=spec.activity_model,
