@@ -291,20 +291,35 @@ def _ceiling(
 REACH_SAMPLES = 33
 
 
-def _resolve_along_path(p, idx, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, lo, hi) -> None:
+def _resolve_along_path(p, idx, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, lo, hi, known_cap=None) -> None:
     """For streams the setpoint inversion could not settle: walk the dose path.
 
     pH need not be monotone in the dose of a weak reagent at high ionic strength
     (NaHCO3 first raises an acid stream toward ½(pK1 + pK2), then activity effects pull
     it down again), so the reachable range is taken from forward solves at log-spaced
     doses up to the limit; a setpoint inside it is then found by bisection on the dose
-    between the first two samples that bracket it. Updates the arrays in place."""
+    between the first two samples that bracket it. Updates the arrays in place.
+
+    The ends of the path are not solved again: at dose 0 the stream is the one already
+    solved (``ph0``, status OK for every stream here), and ``known_cap`` = (dose, pH,
+    status) of the forward solves at the limit dose gives the last sample wherever that
+    dose is still the limit."""
     n = idx.size
     frac = np.concatenate([[0.0], np.logspace(-6, 0, REACH_SAMPLES - 1)])
     doses = cap[idx][:, None] * frac[None, :]
-    rows = np.repeat(idx, REACH_SAMPLES)
-    ph_s, _, st_s = _forward(p.take(rows), doses.ravel(), dc[rows], di[rows], dt[rows])
-    ph_s = np.where(st_s == OK, ph_s, np.nan).reshape(n, REACH_SAMPLES)
+    ph_s = np.empty((n, REACH_SAMPLES))
+    ph_s[:, 0] = ph0[idx]
+    todo = np.ones((n, REACH_SAMPLES), dtype=bool)
+    todo[:, 0] = False
+    if known_cap is not None:
+        d_known, ph_known, st_known = known_cap
+        same = d_known[idx] == doses[:, -1]
+        ph_s[same, -1] = np.where(st_known[idx[same]] == OK, ph_known[idx[same]], np.nan)
+        todo[same, -1] = False
+    r_i, c_i = np.nonzero(todo)
+    rows = idx[r_i]
+    ph_t, _, st_t = _forward(p.take(rows), doses[r_i, c_i], dc[rows], di[rows], dt[rows])
+    ph_s[r_i, c_i] = np.where(st_t == OK, ph_t, np.nan)
     lo[idx] = np.fmin(lo[idx], np.nanmin(ph_s, axis=1))
     hi[idx] = np.fmax(hi[idx], np.nanmax(ph_s, axis=1))
     target = sp[idx]
@@ -403,6 +418,7 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
             break
         cap = np.where(bad, cap / 2.0, cap)
         ph_cap, _, status_cap = _forward(p, cap, dc, di, dt)
+    known_cap = (cap.copy(), ph_cap.copy(), status_cap.copy())
     cation = _hydroxide_cation(reagent, db)
     if cation is not None:
         cap, ph_cap = _slurry_cap(reagent, cation, parsed, asm, p, ph0, dc, di, dt, sv, cap, ph_cap, db)
@@ -415,8 +431,8 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     ok_dose = np.isfinite(dose) & (dose >= 0) & (dose <= cap * (1 + 1e-9))
     hard = np.nonzero(~met & ~(ok_dose & conv) & (status0 == OK))[0]
     if hard.size:
-        _resolve_along_path(p, hard, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, lo, hi)
-    final_ph, _, status_f = _forward(
+        _resolve_along_path(p, hard, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, lo, hi, known_cap)
+    final_ph, final_i, status_f = _forward(
         p, np.where(ok_dose, dose, 0.0), dc, di, dt, guess=np.where(ok_dose & ~met, sp, ph0),
         ionic=np.where(ok_dose & ~met, dosed_i, sv.state.ionic_strength),
     )
@@ -438,7 +454,9 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     if near.size:
         sub = p.take(near)
         for f in (1.0 - HIGH_GAIN_RULE[0], 1.0 + HIGH_GAIN_RULE[0]):
-            moved = _forward(sub, d_ok[near] * f, dc[near], di[near], dt[near], guess=final_ph[near])[0]
+            moved = _forward(
+                sub, d_ok[near] * f, dc[near], di[near], dt[near], guess=final_ph[near], ionic=final_i[near]
+            )[0]
             swing[near] = np.maximum(swing[near], np.abs(moved - final_ph[near]))
     high = (d_ok > 0) & (swing > HIGH_GAIN_RULE[1])
     for j, i in enumerate(where):

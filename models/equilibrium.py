@@ -100,16 +100,21 @@ def solve_arrays(parsed: list[ParsedStream], db: ThermoDatabase) -> Solved:
     asm = assemble(parsed, db)
     p = asm.problem
     n = len(parsed)
-    measured = np.array([np.nan if s.measured_ph is None else s.measured_ph for s in parsed])
+    measured = np.full(n, np.nan)
+    bal = np.zeros(n)
+    alk = np.full(n, np.nan)
+    carb_slot = np.full(n, -1)
     charge_of = {"Na+": 1.0, "Cl-": -1.0}
-    bal = np.array([charge_of.get(s.balance_on or "", 0.0) for s in parsed])
-    alk = np.array([np.nan if s.alkalinity_eq_kg is None else s.alkalinity_eq_kg for s in parsed])
-    carb_slot = np.array(
-        [
-            [x.name for x in s.systems].index(CARBONATE) if s.alkalinity_eq_kg is not None else -1
-            for s in parsed
-        ]
-    )
+    # Only calibrated streams (measured pH, balance ion or alkalinity) need a look.
+    for i in [i for i, s in enumerate(parsed) if s.measured_ph is not None or s.alkalinity_eq_kg is not None
+              or s.balance_on is not None]:
+        s = parsed[i]
+        if s.measured_ph is not None:
+            measured[i] = s.measured_ph
+        bal[i] = charge_of.get(s.balance_on or "", 0.0)
+        if s.alkalinity_eq_kg is not None:
+            alk[i] = s.alkalinity_eq_kg
+            carb_slot[i] = [x.name for x in s.systems].index(CARBONATE)
     added = np.zeros(n)
     carb = np.full(n, np.nan)
     errors = [""] * n

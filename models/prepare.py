@@ -75,7 +75,7 @@ def _density(t: float) -> float:
 #: Per database: (name, unit) -> (strong ion or None, system or None, factor, per kg),
 #: for built-in names whose unit converted without error (errors are never cached).
 _ENTRY_PLANS: dict[int, tuple[ThermoDatabase, dict]] = {}
-#: Per database: (system name, temperature) -> extrapolation warnings of a built-in system.
+#: Per database: temperature -> {built-in system: its extrapolation warnings} (usually empty).
 _EXTRAPOLATED: dict[int, tuple[ThermoDatabase, dict]] = {}
 
 
@@ -188,20 +188,25 @@ def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
     return _finish(spec, db, t, rho, strong, systems, totals, alkalinity)
 
 
-def _extrapolation_warnings(s: SystemData, t: float, db: ThermoDatabase) -> tuple[str, ...]:
-    def build() -> tuple[str, ...]:
-        return tuple(
-            f"{s.name}: pK{k + 1} is extrapolated beyond the temperature range of its fit"
-            for k in s.extrapolated_steps(t)
-        )
+def _extrapolation_warning(s: SystemData, t: float) -> list[str]:
+    return [
+        f"{s.name}: pK{k + 1} is extrapolated beyond the temperature range of its fit"
+        for k in s.extrapolated_steps(t)
+    ]
 
-    if not s.builtin:
-        return build()
+
+def _extrapolating_builtins(db: ThermoDatabase, t: float) -> dict[str, list[str]]:
+    """The built-in systems whose fit is extrapolated at ``t`` [°C], with their warnings
+    (cached per database and temperature; usually empty)."""
     cache = _per_db(_EXTRAPOLATED, db)
-    key = (s.name, t)
-    got = cache.get(key)
+    got = cache.get(t)
     if got is None:
-        got = cache[key] = build()
+        got = {}
+        for s in db.systems.values():
+            w = _extrapolation_warning(s, t)
+            if w:
+                got[s.name] = w
+        cache[t] = got
     return got
 
 
@@ -242,8 +247,13 @@ def _finish(
             systems.append(db.systems[CARBONATE])
             totals.append(0.0)
             open_slot = len(systems) - 1
-    for s in systems:
-        warnings.extend(_extrapolation_warnings(s, t, db))
+    extrapolating = _extrapolating_builtins(db, t)
+    if extrapolating or spec.custom_systems:
+        for s in systems:
+            if not s.builtin:
+                warnings.extend(_extrapolation_warning(s, t))
+            elif s.name in extrapolating:
+                warnings.extend(extrapolating[s.name])
     return ParsedStream(
         temperature_c=t,
         activity_model=spec.activity_model,
@@ -274,19 +284,41 @@ class Assembled:
 
 
 def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
-    """Pack parsed streams into one vectorized problem (constants at each temperature)."""
+    """Pack parsed streams into one vectorized problem (constants at each temperature).
+
+    Streams are grouped by layout (their strong ions, their systems in slot order), so
+    each group is filled with one array assignment; temperature-dependent constants are
+    evaluated once per distinct temperature."""
     n = len(parsed)
     temp = np.array([p.temperature_c for p in parsed], dtype=float)
     rho = np.array([p.density_kg_l for p in parsed], dtype=float)
+    t_unique, t_index = np.unique(temp, return_inverse=True)
+    t_index = t_index.reshape(-1)
     strong_names = tuple(db.strong_ions)
     charges = np.array([db.strong_ions[s].charge for s in strong_names], dtype=float)
     strong_m = np.zeros((n, len(strong_names)))
     col = {s: j for j, s in enumerate(strong_names)}
+    strong_groups: dict[tuple[str, ...], list[int]] = {}
+    layouts: dict[tuple[int, ...], tuple[list[SystemData], list[int]]] = {}
+    opened: list[int] = []
     for i, p in enumerate(parsed):
-        for s, v in p.strong.items():
-            strong_m[i, col[s]] = v
-    k_max = max(1, max(len(p.systems) for p in parsed))
-    p_max = 1 + max([s.n_steps for p in parsed for s in p.systems] + [1])
+        sk = tuple(p.strong)
+        rows = strong_groups.get(sk)
+        if rows is None:
+            strong_groups[sk] = [i]
+        else:
+            rows.append(i)
+        if p.systems:
+            lk = tuple(map(id, p.systems))
+            got = layouts.get(lk)
+            if got is None:
+                layouts[lk] = (p.systems, [i])
+            else:
+                got[1].append(i)
+        if p.open_slot is not None:
+            opened.append(i)
+    k_max = max([1] + [len(systems) for systems, _ in layouts.values()])
+    p_max = 1 + max([1] + [s.n_steps for systems, _ in layouts.values() for s in systems])
     cum = np.full((n, k_max, p_max), np.inf)
     cum[..., 0] = 0.0
     charge = np.zeros((n, k_max, p_max))
@@ -295,37 +327,38 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
     total = np.zeros((n, k_max))
     is_open = np.zeros((n, k_max), dtype=bool)
     open_neutral = np.zeros((n, k_max))
-    # Evaluate each system's pK at all temperatures that use it in one call.
-    users: dict[int, tuple[list[int], list[int]]] = {}
-    by_id: dict[int, SystemData] = {}
-    for i, p in enumerate(parsed):
-        for k, s in enumerate(p.systems):
-            key = id(s)
-            if key not in users:
-                users[key] = ([], [])
-                by_id[key] = s
-            users[key][0].append(i)
-            users[key][1].append(k)
-            total[i, k] = p.totals[k]
-        if p.open_slot is not None:
-            is_open[i, p.open_slot] = True
-    for key, (rows_i, slots_k) in users.items():
-        s = by_id[key]
-        ii, kk = np.array(rows_i), np.array(slots_k)
-        ns = s.n_steps + 1
-        charge[ii, kk, :ns] = s.charges
-        size[ii, kk, :ns] = s.ion_size_angstrom
-        lam0[ii, kk, :ns] = _lambda0(s, db)
-        cum[ii, kk, :ns] = cumulative_pk(np.atleast_2d(s.pka(temp[ii])))
+    for i in opened:
+        is_open[i, parsed[i].open_slot] = True
+    for sk, rows in strong_groups.items():
+        if sk:
+            vals = np.array([list(parsed[i].strong.values()) for i in rows], dtype=float)
+            strong_m[np.ix_(rows, [col[s] for s in sk])] = vals
+    # Each system's constants per distinct temperature, evaluated once.
+    pk_at: dict[int, NDArray] = {}
+    for systems, rows in layouts.values():
+        ii = np.array(rows)
+        kk = len(systems)
+        total[ii, :kk] = np.array([parsed[i].totals for i in rows], dtype=float).reshape(len(rows), kk)
+        for k, s in enumerate(systems):
+            ns = s.n_steps + 1
+            charge[ii, k, :ns] = s.charges
+            size[ii, k, :ns] = s.ion_size_angstrom
+            lam0[ii, k, :ns] = _lambda0(s, db)
+            cum_s = pk_at.get(id(s))
+            if cum_s is None:
+                cum_s = pk_at[id(s)] = cumulative_pk(np.atleast_2d(s.pka(t_unique)))
+            cum[ii, k, :ns] = cum_s[t_index[ii]]
     if is_open.any():
         rows, slots_ = np.nonzero(is_open)
         pco2 = np.array([parsed[i].co2_partial_pressure_atm for i in rows], dtype=float)
         open_neutral[rows, slots_] = 10.0 ** db.log_kh_co2(temp[rows]) * pco2
+    water_u = water_terms(t_unique, db)
+    codes = {m: model_code(m) for m in {p.activity_model for p in parsed}}
     problem = BalanceProblem(
         strong_charge=strong_m @ charges,
         strong_ionic=strong_m @ (charges * charges),
-        activity_code=np.array([model_code(p.activity_model) for p in parsed], dtype=int),
-        **water_terms(temp, db),
+        activity_code=np.array([codes[p.activity_model] for p in parsed], dtype=int),
+        **{k: v[t_index] for k, v in water_u.items()},
         total=total,
         is_open=is_open,
         open_neutral=open_neutral,
