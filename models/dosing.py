@@ -291,7 +291,9 @@ def _ceiling(
 REACH_SAMPLES = 33
 
 
-def _resolve_along_path(p, idx, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, lo, hi, known_cap=None) -> None:
+def _resolve_along_path(
+    p, idx, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, lo, hi, known_cap=None, ionic0=None
+) -> None:
     """For streams the setpoint inversion could not settle: walk the dose path.
 
     pH need not be monotone in the dose of a weak reagent at high ionic strength
@@ -303,7 +305,8 @@ def _resolve_along_path(p, idx, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, l
     The ends of the path are not solved again: at dose 0 the stream is the one already
     solved (``ph0``, status OK for every stream here), and ``known_cap`` = (dose, pH,
     status) of the forward solves at the limit dose gives the last sample wherever that
-    dose is still the limit."""
+    dose is still the limit. Solves start from the stream's own state (``ionic0``, the
+    ionic strength at ``ph0``), each bisection step from the previous midpoint's."""
     n = idx.size
     frac = np.concatenate([[0.0], np.logspace(-6, 0, REACH_SAMPLES - 1)])
     doses = cap[idx][:, None] * frac[None, :]
@@ -318,7 +321,10 @@ def _resolve_along_path(p, idx, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, l
         todo[same, -1] = False
     r_i, c_i = np.nonzero(todo)
     rows = idx[r_i]
-    ph_t, _, st_t = _forward(p.take(rows), doses[r_i, c_i], dc[rows], di[rows], dt[rows])
+    i_start = None if ionic0 is None else ionic0[rows]
+    ph_t, _, st_t = _forward(
+        p.take(rows), doses[r_i, c_i], dc[rows], di[rows], dt[rows], guess=ph0[rows], ionic=i_start
+    )
     ph_s[r_i, c_i] = np.where(st_t == OK, ph_t, np.nan)
     lo[idx] = np.fmin(lo[idx], np.nanmin(ph_s, axis=1))
     hi[idx] = np.fmax(hi[idx], np.nanmax(ph_s, axis=1))
@@ -335,9 +341,14 @@ def _resolve_along_path(p, idx, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, l
     sign_a = np.sign(rel[sub, first[sub]])
     rows2 = idx[sub]
     psub = p.take(rows2)
+    g_ph, g_i = ph0[rows2], None if ionic0 is None else ionic0[rows2]
     for _ in range(60):
         mid = 0.5 * (a + b)
-        ph_m, _, _ = _forward(psub, mid, dc[rows2], di[rows2], dt[rows2])
+        ph_m, i_m, st_m = _forward(psub, mid, dc[rows2], di[rows2], dt[rows2], guess=g_ph, ionic=g_i)
+        usable = (st_m == OK) & np.isfinite(ph_m) & np.isfinite(i_m)
+        g_ph = np.where(usable, ph_m, ph0[rows2])
+        if g_i is not None:
+            g_i = np.where(usable, i_m, ionic0[rows2])
         same = np.sign(ph_m - target[sub]) == sign_a
         a = np.where(same, mid, a)
         b = np.where(same, b, mid)
@@ -387,14 +398,19 @@ def plan_doses(
     out: list[DosePlan | Exception | None] = [None] * n
     parsed: list[ParsedStream] = []
     where: list[int] = []
+    slots = tuple(x for x in reagent.adds if x in db.systems)  # totals the reagent adds to
     for i, spec in enumerate(specs):
         try:
-            if spec.balance_on is not None or any(e.name == "alkalinity" for e in spec.composition):
+            names = [e.name for e in spec.composition]
+            if spec.balance_on is not None or "alkalinity" in names:
                 raise InputError(
                     "dose a calibrated analysis: calibrate with POST /v1/equilibrium first and "
                     "post the closed composition", "/stream/balance_on",
                 )
-            parsed.append(parse_stream(_with_reagent_slots(spec, reagent, db), db))
+            extra = tuple(Entry(x, 0.0, "mol/L") for x in slots if x not in names) if slots else ()
+            parsed.append(
+                parse_stream(replace(spec, composition=spec.composition + extra) if extra else spec, db)
+            )
             where.append(i)
         except InputError as exc:
             out[i] = exc
@@ -431,7 +447,9 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     ok_dose = np.isfinite(dose) & (dose >= 0) & (dose <= cap * (1 + 1e-9))
     hard = np.nonzero(~met & ~(ok_dose & conv) & (status0 == OK))[0]
     if hard.size:
-        _resolve_along_path(p, hard, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, lo, hi, known_cap)
+        _resolve_along_path(
+            p, hard, sp, cap, ph0, dc, di, dt, dose, ok_dose, conv, lo, hi, known_cap, sv.state.ionic_strength
+        )
     final_ph, final_i, status_f = _forward(
         p, np.where(ok_dose, dose, 0.0), dc, di, dt, guess=np.where(ok_dose & ~met, sp, ph0),
         ionic=np.where(ok_dose & ~met, dosed_i, sv.state.ionic_strength),
@@ -441,7 +459,8 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     reached = ok_dose & (status_f == OK)
     lo = np.where(reached, np.minimum(lo, final_ph), lo)
     hi = np.where(reached, np.maximum(hi, final_ph), hi)
-    gain = _gain(p, sp, dc, di, dt, sv.state.ionic_strength)
+    # The dosed stream's ionic strength at the setpoint starts the ±GAIN_STEP_PH inversions.
+    gain = _gain(p, sp, dc, di, dt, np.where(conv, dosed_i, sv.state.ionic_strength))
     # The pH move a ±1 % reagent-flow error really gives, by forward solves: near an
     # equivalence point the linear gain × 1 % overstates it (pH cannot move 20 units)
     # or, just before the inflection, understates it.
@@ -459,53 +478,60 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
             )[0]
             swing[near] = np.maximum(swing[near], np.abs(moved - final_ph[near]))
     high = (d_ok > 0) & (swing > HIGH_GAIN_RULE[1])
+    # Per-stream answers from plain Python lists (one conversion per array, not per item).
+    (status0_l, lo_l, hi_l, met_l, ok_l, conv_l, ph_cap_l, ph0_l, sp_l, cap_l, status_f_l,
+     final_l, dose_l, gain_l, high_l, swing_l) = (
+        a.tolist() for a in (status0, lo, hi, met, ok_dose, conv, ph_cap, ph0, sp, cap, status_f,
+                             final_ph, dose, gain, high, swing)
+    )
     for j, i in enumerate(where):
         if cap_errors[j] is not None:
             out[i] = cap_errors[j]
             continue
-        if status0[j] != OK:
+        if status0_l[j] != OK:
             from models.equilibrium import STATUS_MESSAGES, failure_message  # reason, not a code
 
-            code = int(status0[j])
+            code = int(status0_l[j])
             out[i] = SolveError("the stream itself does not solve: " + failure_message(code), STATUS_MESSAGES[code])
             continue
-        reach = (float(lo[j]), float(hi[j]))
-        if not met[j] and not (ok_dose[j] and conv[j]):
-            raises = ph_cap[j] > ph0[j] if ph_cap[j] != ph0[j] else base
+        reach = (lo_l[j], hi_l[j])
+        met_j = met_l[j]
+        if not met_j and not (ok_l[j] and conv_l[j]):
+            ph0_j, sp_j, ph_cap_j = ph0_l[j], sp_l[j], ph_cap_l[j]
+            raises = ph_cap_j > ph0_j if ph_cap_j != ph0_j else base
             what = "raises" if raises else "lowers"
-            wrong = (sp[j] < ph0[j]) if raises else (sp[j] > ph0[j])
+            wrong = (sp_j < ph0_j) if raises else (sp_j > ph0_j)
             why = (
-                f"{reagent.name} {what} pH: it cannot take this stream from pH {ph0[j]:.2f} to {sp[j]:.2f}"
+                f"{reagent.name} {what} pH: it cannot take this stream from pH {ph0_j:.2f} to {sp_j:.2f}"
                 if wrong
-                else f"setpoint {sp[j]:.2f} is beyond what {reagent.name} can reach"
+                else f"setpoint {sp_j:.2f} is beyond what {reagent.name} can reach"
             )
             out[i] = UnreachableSetpoint(
                 f"{why}; reachable with {reagent.name}: pH {reach[0]:.2f} to {reach[1]:.2f} "
-                f"(between the stream's own pH {ph0[j]:.2f} and pH {ph_cap[j]:.2f} at the limit "
-                f"dose of {cap[j] * 1e3:.4g} mmol/L)",
+                f"(between the stream's own pH {ph0_j:.2f} and pH {ph_cap_j:.2f} at the limit "
+                f"dose of {cap_l[j] * 1e3:.4g} mmol/L)",
                 reach[0], reach[1],
             )
             continue
-        if status_f[j] != OK or (not met[j] and abs(final_ph[j] - sp[j]) > SETPOINT_TOLERANCE_PH):
+        final_j = final_l[j]
+        if status_f_l[j] != OK or (not met_j and abs(final_j - sp_l[j]) > SETPOINT_TOLERANCE_PH):
             out[i] = SolveError("the dosed stream did not settle at the setpoint", "dose_not_converged")
             continue
-        d = float(dose[j])
         warnings: list[str] = []
-        g = float(gain[j])
-        if high[j]:
+        if high_l[j]:
             warnings.append(
                 f"process gain is high: a 1 % error in reagent flow moves the pH by "
-                f"{swing[j]:.2f} at the setpoint (rule of thumb of the trade: above "
+                f"{swing_l[j]:.2f} at the setpoint (rule of thumb of the trade: above "
                 f"{HIGH_GAIN_RULE[1]} pH, single-stage control is impractical; use two stages "
                 "or equalise the stream first)"
             )
         out[i] = DosePlan(
-            dose_mol_l=d,
-            initial_ph=float(ph0[j]),
-            final_ph=float(final_ph[j]),
-            gain_ph_per_mol_l=g,
+            dose_mol_l=dose_l[j],
+            initial_ph=ph0_l[j],
+            final_ph=final_j,
+            gain_ph_per_mol_l=gain_l[j],
             reachable_ph=reach,
-            already_met=bool(met[j]),
+            already_met=met_j,
             stream=specs[j],
             reagent=reagent,
             warnings=warnings,
