@@ -13,8 +13,8 @@ under 1 % below about 0.1 mol/L of dissolved salts.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
 import math
+from dataclasses import dataclass, field
 from functools import lru_cache
 
 import numpy as np
