@@ -472,9 +472,11 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
     near = np.nonzero((d_ok > 0) & (linear > HIGH_GAIN_RULE[1] / 10))[0]
     if near.size:
         sub = p.take(near)
+        # Start from the dosed stream's state where its check solve settled.
+        i_near = np.where(status_f[near] == OK, final_i[near], 0.5 * sub.strong_ionic)
         for f in (1.0 - HIGH_GAIN_RULE[0], 1.0 + HIGH_GAIN_RULE[0]):
             moved = _forward(
-                sub, d_ok[near] * f, dc[near], di[near], dt[near], guess=final_ph[near], ionic=final_i[near]
+                sub, d_ok[near] * f, dc[near], di[near], dt[near], guess=final_ph[near], ionic=i_near
             )[0]
             swing[near] = np.maximum(swing[near], np.abs(moved - final_ph[near]))
     high = (d_ok > 0) & (swing > HIGH_GAIN_RULE[1])
