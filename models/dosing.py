@@ -146,6 +146,8 @@ def _direction(asm: Assembled, reagent: Reagent, db: ThermoDatabase) -> tuple[ND
             z = db.strong_ions[name].charge
             d_charge += coef * z / rho
             d_ionic += coef * z * z / rho
+        if name not in db.systems:
+            continue  # only a system total has slots to add to
         for i, slots in enumerate(asm.slots):
             for k, s in enumerate(slots):
                 if s.name == name and not asm.problem.is_open[i, k]:
@@ -271,19 +273,27 @@ def _ceiling(
     stream the InputError of a temperature outside the reagent's solubility table."""
     cap = np.full(len(parsed), MAX_DOSE_MOL_L)
     errors: list[InputError | None] = [None] * len(parsed)
+    gas = reagent.form == "gas" and reagent.formula == "CO2"
+    if not gas and not reagent.solubility_table:
+        return cap, errors  # no solubility limit: MAX_DOSE_MOL_L for every stream
+    slurry = _hydroxide_cation(reagent, db) is not None
+    by_t: dict[float, float | None | InputError] = {}  # limit [mol/kg] per temperature
     for i, ps in enumerate(parsed):
-        limit_mol_kg = None
-        if reagent.form == "gas" and reagent.formula == "CO2":
-            limit_mol_kg = float(10.0 ** db.log_kh_co2(ps.temperature_c))  # at 1 atm
-        else:
-            try:
-                sol = reagent.solubility_g_per_100g_h2o(ps.temperature_c)
-            except InputError as exc:
-                errors[i] = InputError(exc.message, "/temperature_c")
-                continue
-            if sol is not None and _hydroxide_cation(reagent, db) is None:
-                limit_mol_kg = sol * 10.0 / reagent.molar_mass_g_mol
-        if limit_mol_kg is not None:
+        t = ps.temperature_c
+        limit_mol_kg = by_t.get(t, by_t)
+        if limit_mol_kg is by_t:
+            if gas:
+                limit_mol_kg = float(10.0 ** db.log_kh_co2(t))  # at 1 atm
+            else:
+                try:
+                    sol = reagent.solubility_g_per_100g_h2o(t)
+                    limit_mol_kg = sol * 10.0 / reagent.molar_mass_g_mol if sol is not None and not slurry else None
+                except InputError as exc:
+                    limit_mol_kg = exc
+            by_t[t] = limit_mol_kg
+        if isinstance(limit_mol_kg, InputError):
+            errors[i] = InputError(limit_mol_kg.message, "/temperature_c")
+        elif limit_mol_kg is not None:
             cap[i] = min(cap[i], limit_mol_kg * ps.density_kg_l)
     return cap, errors
 
