@@ -77,11 +77,14 @@ def _density(t: float) -> float:
 _ENTRY_PLANS: dict[int, tuple[ThermoDatabase, dict]] = {}
 #: Per database: temperature -> {built-in system: its extrapolation warnings} (usually empty).
 _EXTRAPOLATED: dict[int, tuple[ThermoDatabase, dict]] = {}
+_EXTRAPOLATED_MAX = 4096
 
 
 def _per_db(store: dict[int, tuple[ThermoDatabase, dict]], db: ThermoDatabase) -> dict:
     got = store.get(id(db))
     if got is None or got[0] is not db:
+        if len(store) >= 8:  # a few databases at most stay referenced
+            store.clear()
         got = store[id(db)] = (db, {})
     return got[1]
 
@@ -206,6 +209,8 @@ def _extrapolating_builtins(db: ThermoDatabase, t: float) -> dict[str, list[str]
             w = _extrapolation_warning(s, t)
             if w:
                 got[s.name] = w
+        if len(cache) >= _EXTRAPOLATED_MAX:  # bounded: a historian may bring many temperatures
+            cache.clear()
         cache[t] = got
     return got
 
