@@ -443,7 +443,8 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
         if not bad.any():
             break
         cap = np.where(bad, cap / 2.0, cap)
-        ph_cap, _, status_cap = _forward(p, cap, dc, di, dt)
+        rows = np.nonzero(bad)[0]  # only these change: the others keep their solve
+        ph_cap[rows], _, status_cap[rows] = _forward(p.take(rows), cap[rows], dc[rows], di[rows], dt[rows])
     known_cap = (cap.copy(), ph_cap.copy(), status_cap.copy())
     cation = _hydroxide_cation(reagent, db)
     if cation is not None:
