@@ -87,6 +87,21 @@ class Server:
         fields = Path(f"/proc/{self.proc.pid}/stat").read_text().rsplit(")", 1)[1].split()
         return (int(fields[11]) + int(fields[12])) / CLK_TCK  # utime + stime
 
+    def thread_cpu_seconds(self) -> tuple[float, float]:
+        """CPU time [s] of the main (event-loop) thread and of all other threads (solves)."""
+        main = other = 0.0
+        for task in Path(f"/proc/{self.proc.pid}/task").iterdir():
+            try:
+                fields = (task / "stat").read_text().rsplit(")", 1)[1].split()
+            except OSError:  # the thread ended meanwhile
+                continue
+            cpu = (int(fields[11]) + int(fields[12])) / CLK_TCK
+            if int(task.name) == self.proc.pid:
+                main += cpu
+            else:
+                other += cpu
+        return main, other
+
     def memory_mib(self) -> dict[str, float]:
         out: dict[str, float] = {}
         for line in Path(f"/proc/{self.proc.pid}/status").read_text().splitlines():
