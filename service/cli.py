@@ -84,6 +84,7 @@ def _serve(args: argparse.Namespace) -> int:
         os.execv(sys.executable, argv)
     import uvicorn
 
+    from service.http_protocol import HttpToolsProtocol
     from service.logging import configure_logging
     from service.metrics import multiprocess_dir, prepare_multiprocess_dir
 
@@ -99,8 +100,8 @@ def _serve(args: argparse.Namespace) -> int:
         access_log=False,
         log_config=None,
         lifespan="on",
-        loop="uvloop",  # C event loop and HTTP parser (runtime dependencies): about half the
-        http="httptools",  # per-request CPU of the pure-Python asyncio + h11 defaults
+        loop="uvloop",  # C event loop and HTTP parser (runtime dependencies), one socket write
+        http=HttpToolsProtocol,  # per response: far less CPU than asyncio + h11
         timeout_graceful_shutdown=30,
     )
     return 0
