@@ -85,7 +85,7 @@ def _serve(args: argparse.Namespace) -> int:
     import uvicorn
 
     from service.http_protocol import HttpToolsProtocol
-    from service.logging import configure_logging
+    from service.logging import configure_logging, skip_unlogged_record_fields
     from service.metrics import multiprocess_dir, prepare_multiprocess_dir
 
     directory = multiprocess_dir()
@@ -93,6 +93,7 @@ def _serve(args: argparse.Namespace) -> int:
         prepare_multiprocess_dir(directory)
 
     configure_logging(settings.log_level)
+    skip_unlogged_record_fields()
     uvicorn.run(
         "service.app:app",
         host=settings.host,

@@ -14,6 +14,7 @@ import tempfile
 from pathlib import Path
 from typing import Any
 
+from service.logging import skip_unlogged_record_fields
 from service.metrics import prepare_multiprocess_dir
 from service.settings import Settings
 
@@ -38,6 +39,7 @@ def _prepare_multiproc_dir() -> str:
 
 
 _prepare_multiproc_dir()
+skip_unlogged_record_fields()  # in the master; the forked workers inherit it
 
 
 def on_starting(server: Any) -> None:
