@@ -191,3 +191,21 @@ def test_a_defect_on_the_fast_path_is_a_bare_500(make_client: AppFactory) -> Non
     a = fast.post(PATH, content=json.dumps(CREAMERY_STREAM), headers=JSON)
     _same(a, full.post(PATH, content=json.dumps(CREAMERY_STREAM), headers=JSON))
     assert a.status_code == 500 and "a bug" not in a.text
+
+
+def test_a_solve_over_the_time_budget_is_the_same_prompt_503(make_client: AppFactory) -> None:
+    import time
+
+    real = default_core()
+
+    def slow_many(specs: Sequence[Any]) -> list[Any]:
+        time.sleep(0.3)
+        return real.solve_many(specs)
+
+    core = Core(solve=real.solve, solve_many=slow_many, load_database=real.load_database)
+    fast = make_client(core=core, solve_time_budget_s=0.05)
+    full = make_client(core=core, solve_time_budget_s=0.05, fast_path=False)
+    a = fast.post(PATH, content=json.dumps(SIMPLE), headers=JSON)
+    _same(a, full.post(PATH, content=json.dumps(SIMPLE), headers=JSON))
+    assert a.status_code == 503 and a.json()["type"].endswith("time-budget-exceeded")
+    assert a.headers["retry-after"] == "1"
