@@ -93,8 +93,9 @@ class EquilibriumFastPath:
             return False
         if length is None or not length.isdigit() or not 0 < int(length) <= self.body_limit:
             return False
-        if self.api_key is not None and (key is None or not hmac.compare_digest(key, self.api_key)):
-            return False
+        if self.api_key is not None:  # compared as service.auth does: the latin-1 header text, UTF-8 encoded
+            if key is None or not hmac.compare_digest(key.decode("latin-1").encode(), self.api_key):
+                return False
         return self.state.ready
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:

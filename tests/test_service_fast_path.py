@@ -104,6 +104,14 @@ def test_the_api_key_is_checked_as_by_the_full_app(make_client: AppFactory, key:
     assert a.status_code == status
 
 
+@pytest.mark.parametrize("sent", [b"\xc3\xa9", b"\xe9"], ids=["utf-8-bytes", "latin-1-byte"])
+def test_a_non_ascii_api_key_is_compared_as_by_the_full_app(make_client: AppFactory, sent: bytes) -> None:
+    fast, full = _pair(make_client, api_key="\u00e9")
+    headers = {"content-type": "application/json", "x-api-key": sent}
+    _same(fast.post(PATH, content=json.dumps(SIMPLE), headers=headers),  # type: ignore[arg-type]
+          full.post(PATH, content=json.dumps(SIMPLE), headers=headers))  # type: ignore[arg-type]
+
+
 def test_a_body_over_the_limit_is_refused_as_by_the_full_app(make_client: AppFactory) -> None:
     fast, full = _pair(make_client, body_limit_bytes=100)
     body = json.dumps(CREAMERY_STREAM)
