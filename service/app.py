@@ -13,6 +13,7 @@ from fastapi.middleware.cors import CORSMiddleware
 
 from service.auth import API_KEY_HEADER, api_key_dependency
 from service.coalesce import Coalescer
+from service.fastpath import EquilibriumFastPath
 from service.core import Core, default_core
 from service.logging import configure_logging
 from service.metrics import Metrics
@@ -78,7 +79,8 @@ def create_app(settings: Settings | None = None, core: Core | None = None) -> Fa
 
     auth = [Depends(api_key_dependency(settings.api_key))]
     solver = Solver(core, metrics, settings.solve_time_budget_s, coalescer)
-    app.include_router(equilibrium_router(solver, settings.batch_max_items), dependencies=auth)
+    equilibrium = equilibrium_router(solver, settings.batch_max_items)
+    app.include_router(equilibrium, dependencies=auth)
     version = core.reagents_version() if core.reagents_version else None
     app.include_router(
         catalog_router(with_reagents=core.load_reagents is not None, reagents_version=version),
@@ -97,6 +99,17 @@ def create_app(settings: Settings | None = None, core: Core | None = None) -> Fa
             expose_headers=[REQUEST_ID_HEADER],
         )
     app.add_middleware(BodyLimitMiddleware, limit=settings.body_limit_bytes)
+    if settings.fast_path:  # inside the request id / access log / metrics, outside the rest
+        app.add_middleware(
+            EquilibriumFastPath,
+            solver=solver,
+            state=state,
+            fastapi_app=app,
+            route=next(r for r in equilibrium.routes if getattr(r, "path", None) == "/v1/equilibrium"),
+            body_limit=settings.body_limit_bytes,
+            api_key=settings.api_key,
+            cors=bool(settings.cors_origins),
+        )
     app.add_middleware(RequestContextMiddleware, metrics=metrics)
 
     def openapi() -> dict[str, Any]:

@@ -48,6 +48,11 @@ def _stopping() -> ProblemError:
     )
 
 
+def _expire(fut: asyncio.Future[Outcome]) -> None:
+    if not fut.done():
+        fut.set_exception(TimeoutError())
+
+
 class Coalescer:
     """A queue of single-stream solves served by one collector task on the event loop."""
 
@@ -96,14 +101,24 @@ class Coalescer:
             if not fut.done():
                 fut.set_exception(_stopping())
 
-    async def submit(self, spec: StreamSpec) -> EquilibriumResult | StreamFailure:
-        """Queue ``spec`` and wait for its outcome; a defect's exception is re-raised here."""
+    async def submit(self, spec: StreamSpec, timeout_s: float | None = None) -> EquilibriumResult | StreamFailure:
+        """Queue ``spec`` and wait for its outcome; a defect's exception is re-raised here.
+
+        After ``timeout_s`` [s] :class:`TimeoutError` is raised and the stream is dropped
+        from the queue (or its result, if it is being solved, discarded). One timer on the
+        loop, not a cancel scope: this runs for every single-stream request.
+        """
         if not self.running or self._loop is None or self._wake is None:
             raise RuntimeError("the coalescer is not running on this event loop")
         fut: asyncio.Future[Outcome] = self._loop.create_future()
         self._pending.append((spec, fut))
         self._wake.set()
-        outcome = await fut
+        timer = None if timeout_s is None else self._loop.call_later(timeout_s, _expire, fut)
+        try:
+            outcome = await fut
+        finally:
+            if timer is not None:
+                timer.cancel()
         if isinstance(outcome, BaseException):
             raise outcome
         return outcome

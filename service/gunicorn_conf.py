@@ -1,6 +1,7 @@
 """gunicorn configuration for ``protolyte serve --workers N`` (N > 1).
 
-Workers are ``uvicorn_worker.UvicornWorker``. Prometheus multiprocess mode: the
+Workers are ``service.gunicorn_worker.ProtolyteWorker`` (``uvicorn_worker.UvicornWorker``
+on uvloop and the one-write-per-response protocol of ``service.http_protocol``). Prometheus multiprocess mode: the
 directory in ``PROMETHEUS_MULTIPROC_DIR`` (default: a fresh one under the temp dir)
 is wiped and created when the master starts, and a dead worker's files are marked
 in ``child_exit``. SIGTERM stops gracefully (``graceful_timeout``).
@@ -13,6 +14,7 @@ import tempfile
 from pathlib import Path
 from typing import Any
 
+from service.logging import skip_unlogged_record_fields
 from service.metrics import prepare_multiprocess_dir
 from service.settings import Settings
 
@@ -22,7 +24,7 @@ _settings = Settings.from_env()
 
 bind = [f"{_settings.host}:{_settings.port}"]
 workers = _settings.workers
-worker_class = "uvicorn_worker.UvicornWorker"
+worker_class = "service.gunicorn_worker.ProtolyteWorker"
 graceful_timeout = 30
 timeout = 60
 keepalive = 5
@@ -37,6 +39,7 @@ def _prepare_multiproc_dir() -> str:
 
 
 _prepare_multiproc_dir()
+skip_unlogged_record_fields()  # in the master; the forked workers inherit it
 
 
 def on_starting(server: Any) -> None:

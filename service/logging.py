@@ -14,7 +14,7 @@ from typing import Any, TextIO
 
 import orjson
 
-__all__ = ["ACCESS_LOGGER", "JsonFormatter", "configure_logging"]
+__all__ = ["ACCESS_LOGGER", "JsonFormatter", "configure_logging", "skip_unlogged_record_fields"]
 
 ACCESS_LOGGER = "protolyte.access"
 _FIELDS = (
@@ -62,3 +62,17 @@ def configure_logging(level: str = "INFO", stream: TextIO | None = None) -> None
     access.handlers.clear()
     access.propagate = False
     access.disabled = True
+
+
+def skip_unlogged_record_fields() -> None:
+    """Stop collecting, for every log record, what the JSON lines never show.
+
+    The logging HOWTO's optimisation knobs: no caller frame lookup (``funcName``,
+    ``lineno``), no thread, process or multiprocessing names. About a fifth of the cost
+    of the access line written for every request. Process-wide, so only the server
+    processes call it (``protolyte serve``, the gunicorn configuration), not tests.
+    """
+    logging._srcfile = None  # type: ignore[attr-defined]
+    logging.logThreads = False
+    logging.logProcesses = False
+    logging.logMultiprocessing = False

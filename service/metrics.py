@@ -23,6 +23,7 @@ import os
 import re
 import shutil
 from pathlib import Path
+from typing import Any
 
 from prometheus_client import (
     CONTENT_TYPE_LATEST,
@@ -121,6 +122,7 @@ class Metrics:
             multiprocess_mode="max",
         )
         self._version = version
+        self._request_children: dict[tuple[str, str, int], tuple[Any, Any]] = {}
 
     def set_build_info(self, database_version: str) -> None:
         """Publish the build-info gauge once the database version is known."""
@@ -128,8 +130,17 @@ class Metrics:
 
     def observe_request(self, route: str, method: str, status: int, seconds: float) -> None:
         """Count one answered request and its duration."""
-        self.requests.labels(route=route, method=method, status=str(status)).inc()
-        self.duration.labels(route=route, method=method).observe(seconds)
+        key = (route, method, status)
+        children = self._request_children.get(key)
+        if children is None:  # labels() looks the child up under a lock: once per label set
+            children = (
+                self.requests.labels(route=route, method=method, status=str(status)),
+                self.duration.labels(route=route, method=method),
+            )
+            if len(self._request_children) < 4096:  # bounded: route is a template or "unmatched"
+                self._request_children[key] = children
+        children[0].inc()
+        children[1].observe(seconds)
 
     def observe_solved(self, iterations: int) -> None:
         """Count one solved stream."""

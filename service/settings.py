@@ -13,6 +13,7 @@
 | ``PROTOLYTE_SOLVE_TIME_BUDGET_S`` | ``10`` | wall-clock budget of one request's solve [s] |
 | ``PROTOLYTE_COALESCE`` | ``1`` | ``1``: concurrent single-stream solves share one vectorized call; ``0``: each alone |
 | ``PROTOLYTE_COALESCE_MAX_BATCH`` | ``256`` | most single-stream requests solved in one coalesced call |
+| ``PROTOLYTE_FAST_PATH`` | ``1`` | ``1``: a valid ``POST /v1/equilibrium`` skips FastAPI's stack (``service.fastpath``); ``0``: every request takes the full app |
 """
 
 from __future__ import annotations
@@ -84,6 +85,7 @@ class Settings:
     solve_time_budget_s: float = 10.0
     coalesce: bool = True
     coalesce_max_batch: int = 256
+    fast_path: bool = True
 
     def __post_init__(self) -> None:
         if self.log_level not in LOG_LEVELS:
@@ -115,4 +117,5 @@ class Settings:
             solve_time_budget_s=_float(env, "SOLVE_TIME_BUDGET_S", 10.0, 0.001),
             coalesce=_flag(env, "COALESCE", True),
             coalesce_max_batch=_int(env, "COALESCE_MAX_BATCH", 256, 1),
+            fast_path=_flag(env, "FAST_PATH", True),
         )

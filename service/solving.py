@@ -88,8 +88,7 @@ class Solver:
 
     async def _coalesced(self, coalescer: Coalescer, spec: StreamSpec) -> EquilibriumResult:
         try:
-            with anyio.fail_after(self.budget_s):
-                outcome = await coalescer.submit(spec)
+            outcome = await coalescer.submit(spec, self.budget_s)
         except TimeoutError:
             raise self._over_budget("solve") from None
         if isinstance(outcome, StreamFailure):

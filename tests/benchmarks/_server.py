@@ -1,7 +1,9 @@
 """A real ``protolyte serve`` process on 127.0.0.1 for the HTTP benchmarks (not a test).
 
 One worker, a free loopback port, stdout/stderr to a temporary file; the caller stops
-it in a ``finally`` (``server.stop()``). CPU time and memory are read from /proc.
+it in a ``finally`` (``server.stop()``). ``PYTHONPATH`` puts this checkout first, so a
+git worktree benchmarks its own code even when the venv's editable install points at
+another tree. CPU time and memory are read from /proc.
 """
 
 from __future__ import annotations
@@ -57,6 +59,8 @@ class Server:
             "PROTOLYTE_LOG_LEVEL": log_level,
             "OPENBLAS_NUM_THREADS": "1",
             "OMP_NUM_THREADS": "1",
+            # the checkout's own code, not whatever tree the venv's editable install names
+            "PYTHONPATH": os.pathsep.join(p for p in (str(ROOT), os.environ.get("PYTHONPATH", "")) if p),
             **env,
         }
         full.pop("PROMETHEUS_MULTIPROC_DIR", None)
@@ -82,6 +86,21 @@ class Server:
     def cpu_seconds(self) -> float:
         fields = Path(f"/proc/{self.proc.pid}/stat").read_text().rsplit(")", 1)[1].split()
         return (int(fields[11]) + int(fields[12])) / CLK_TCK  # utime + stime
+
+    def thread_cpu_seconds(self) -> tuple[float, float]:
+        """CPU time [s] of the main (event-loop) thread and of all other threads (solves)."""
+        main = other = 0.0
+        for task in Path(f"/proc/{self.proc.pid}/task").iterdir():
+            try:
+                fields = (task / "stat").read_text().rsplit(")", 1)[1].split()
+            except OSError:  # the thread ended meanwhile
+                continue
+            cpu = (int(fields[11]) + int(fields[12])) / CLK_TCK
+            if int(task.name) == self.proc.pid:
+                main += cpu
+            else:
+                other += cpu
+        return main, other
 
     def memory_mib(self) -> dict[str, float]:
         out: dict[str, float] = {}

@@ -1,0 +1,179 @@
+"""A fast path for the common case of ``POST /v1/equilibrium``: one valid JSON stream.
+
+SCADA historians send this request thousands of times a second. Through FastAPI it
+passes a dozen ASGI layers, the dependency solver and a pydantic round trip per
+request; here a valid request is answered directly:
+
+* the request is ``POST /v1/equilibrium`` with ``Content-Type: application/json``
+  (optionally ``; charset=utf-8``), a ``Content-Length`` within the body limit, the
+  right ``X-API-Key`` (when the server has one), no CORS ``Origin`` to answer, and
+  the service is ready;
+* the body parses (orjson) and validates as :class:`service.schemas.Stream` in the
+  same (python, strict) mode FastAPI uses, and passes
+  :func:`service.checks.structural_errors`.
+
+Anything else — a wrong header, invalid JSON, a field error, an over-long body, a
+client that went away while sending — is handed, with the body read so far replayed,
+to the full FastAPI app, so every error response is produced by the same code as
+without the fast path. After validation the solve runs through the same
+:class:`service.solving.Solver` (time budget, coalescing, metrics) and the answer is
+the same bytes and headers as the route's ``json_response``; an exception from the
+solve is answered by the app's own exception handlers (a defect re-raises to the
+outermost error middleware, as from the route). The middleware sits inside
+``RequestContextMiddleware``, so the request id, access log line and metrics are the
+same too. ``PROTOLYTE_FAST_PATH=0`` turns it off.
+"""
+
+from __future__ import annotations
+
+import hmac
+from typing import Any
+
+import orjson
+from pydantic import ValidationError
+from starlette.requests import Request
+from starlette.types import ASGIApp, Message, Receive, Scope, Send
+
+from service.checks import structural_errors
+from service.convert import response_dict, to_spec
+from service.schemas import Stream
+from service.solving import Solver
+from service.state import AppState
+
+__all__ = ["EquilibriumFastPath"]
+
+PATH = "/v1/equilibrium"
+_JSON_TYPES = frozenset((b"application/json", b"application/json; charset=utf-8", b"application/json;charset=utf-8"))
+_validate = Stream.model_validate
+
+
+class EquilibriumFastPath:
+    """ASGI middleware answering a valid single-stream request without FastAPI's stack."""
+
+    def __init__(
+        self,
+        app: ASGIApp,
+        *,
+        solver: Solver,
+        state: AppState,
+        fastapi_app: Any,
+        route: Any,
+        body_limit: int,
+        api_key: str | None,
+        cors: bool,
+    ) -> None:
+        self.app = app
+        self.solver = solver
+        self.state = state
+        self.fastapi_app = fastapi_app
+        self.body_limit = body_limit
+        self.api_key = api_key.encode() if api_key else None
+        self.cors = cors
+        self.route = route  # what the router puts in scope["route"]: the metrics and log label
+
+    def _eligible(self, scope: Scope) -> bool:
+        """Headers as the fast path needs them (anything unusual: the full app decides)."""
+        content_type = length = key = None
+        for name, value in scope["headers"]:
+            if name == b"content-type":
+                if content_type is not None:
+                    return False
+                content_type = value
+            elif name == b"content-length":
+                if length is not None:
+                    return False
+                length = value
+            elif name == b"x-api-key":
+                if key is not None:
+                    return False
+                key = value
+            elif name == b"transfer-encoding" or (name == b"origin" and self.cors):
+                return False
+        if content_type is None or content_type.lower() not in _JSON_TYPES:
+            return False
+        if length is None or not length.isdigit() or not 0 < int(length) <= self.body_limit:
+            return False
+        if self.api_key is not None:  # compared as service.auth does: the latin-1 header text, UTF-8 encoded
+            if key is None or not hmac.compare_digest(key.decode("latin-1").encode(), self.api_key):
+                return False
+        return self.state.ready
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if (
+            scope["type"] != "http"
+            or scope["path"] != PATH
+            or scope["method"] != "POST"
+            or scope.get("root_path")
+            or not self._eligible(scope)
+        ):
+            await self.app(scope, receive, send)
+            return
+        # -- the body, as sent; stop at the limit (the full app answers 413)
+        messages: list[Message] = []
+        chunks: list[bytes] = []
+        size = 0
+        while True:
+            message = await receive()
+            messages.append(message)
+            if message["type"] != "http.request":
+                return await self._fallback(scope, receive, send, messages)
+            chunk = message.get("body", b"")
+            size += len(chunk)
+            if size > self.body_limit:
+                return await self._fallback(scope, receive, send, messages)
+            chunks.append(chunk)
+            if not message.get("more_body", False):
+                break
+        body = chunks[0] if len(chunks) == 1 else b"".join(chunks)
+        # -- validation; any doubt: the full app answers (and explains)
+        try:
+            data = orjson.loads(body)
+        except orjson.JSONDecodeError:
+            return await self._fallback(scope, receive, send, messages)
+        if type(data) is not dict:
+            return await self._fallback(scope, receive, send, messages)
+        try:
+            stream = _validate(data)
+        except ValidationError:
+            return await self._fallback(scope, receive, send, messages)
+        if structural_errors(stream):
+            return await self._fallback(scope, receive, send, messages)
+        scope["route"] = self.route
+        # -- the solve, exactly as the route does it
+        try:
+            result = await self.solver.solve(to_spec(stream))
+            content = orjson.dumps(response_dict(result, self.state.version))
+        except Exception as exc:
+            handler = self._handler(exc)
+            if handler is None:
+                raise  # a defect: the outermost error middleware answers 500, as from the route
+            response = await handler(Request(scope, receive), exc)
+            await response(scope, receive, send)
+            return
+        await send({
+            "type": "http.response.start",
+            "status": 200,
+            "headers": [(b"content-length", str(len(content)).encode("latin-1")), (b"content-type", b"application/json")],
+        })
+        await send({"type": "http.response.body", "body": content})
+
+    def _handler(self, exc: Exception) -> Any:
+        """The app's handler of ``exc`` as its exception middleware would pick it (not the 500 one)."""
+        handlers = self.fastapi_app.exception_handlers
+        for cls in type(exc).__mro__:
+            if cls is Exception:
+                return None
+            if cls in handlers:
+                return handlers[cls]
+        return None
+
+    async def _fallback(self, scope: Scope, receive: Receive, send: Send, messages: list[Message]) -> None:
+        """The full app, with the messages read so far replayed first."""
+        pending = list(messages)
+
+        async def replay() -> Message:
+            if pending:
+                return pending.pop(0)
+            return await receive()
+
+        await self.app(scope, replay, send)
