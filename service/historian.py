@@ -25,14 +25,18 @@ The same :func:`solve_text` solves a chunk in-process and a partition on a Dask 
 
 from __future__ import annotations
 
+import collections
 import csv
+import functools
 import io
 import itertools
 import json
 import math
+import os
 import sys
 import time
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import IO, Any
@@ -53,6 +57,7 @@ from service import historian_arrow
 from service.historian_format import format_g10_str
 
 __all__ = [
+    "DEFAULT_THREADS",
     "RESULT_COLUMNS",
     "VALUE_MAX",
     "ChunkResult",
@@ -716,11 +721,74 @@ class RunSummary:
         return len({e.row for e in self.errors})
 
 
+#: Chunks solved at once by ``run_local`` (threads: pyarrow, and numpy on whole columns,
+#: release the GIL, so parsing, solving and formatting of neighbouring chunks overlap).
+DEFAULT_THREADS = max(1, min(4, os.cpu_count() or 1))
+
+_Task = Callable[[], ChunkResult]
+
+
+def _raise(exc: BaseException) -> ChunkResult:
+    raise exc
+
+
+def _in_order(tasks: Iterator[tuple[_Task, float]], threads: int) -> Iterator[tuple[ChunkResult, float]]:
+    """Run the chunk tasks on ``threads`` threads, results in input order; at most
+    ``threads`` + 1 chunks are in memory at once."""
+    if threads <= 1:
+        for task, amount in tasks:
+            yield task(), amount
+        return
+    pending: collections.deque[tuple[Future[ChunkResult], float]] = collections.deque()
+    with ThreadPoolExecutor(threads, thread_name_prefix="protolyte-solve") as pool:
+        try:
+            for task, amount in tasks:
+                pending.append((pool.submit(task), amount))
+                if len(pending) > threads:
+                    fut, amt = pending.popleft()
+                    yield fut.result(), amt
+            while pending:
+                fut, amt = pending.popleft()
+                yield fut.result(), amt
+        finally:
+            for fut, _ in pending:
+                fut.cancel()
+
+
+def _csv_tasks(handle: IO[bytes], header: list[str], mapping: Mapping_, chunk_size: int) -> Iterator[tuple[_Task, float]]:
+    """One task per chunk, numbered as the sequential run numbers them (a row per line,
+    except where quoted fields span lines: those chunks are parsed here to count rows)."""
+    first = 1
+    for data, lines in read_csv_chunks(handle, chunk_size):
+        if b'"' in data:
+            try:
+                rows = list(csv.reader(io.StringIO(data.decode("utf-8"))))
+            except (UnicodeDecodeError, csv.Error) as exc:
+                yield functools.partial(_raise, exc), len(data)
+                return
+            yield functools.partial(solve_rows, rows, header, mapping, first), len(data)
+            first += len(rows)
+        else:
+            yield functools.partial(solve_chunk, data, lines, header, mapping, first), len(data)
+            first += lines
+
+
+def _parquet_tasks(path: str, mapping: Mapping_, chunk_size: int) -> Iterator[tuple[_Task, float]]:
+    first = 1
+    for rows, header, count in read_parquet_chunks(path, mapping, chunk_size):
+        yield functools.partial(solve_rows, rows, header, mapping, first), count
+        first += count
+
+
 def run_local(
     input_path: Path, mapping: Mapping_, out: IO[str], *, chunk_size: int, on_error: Any = None,
-    progress: Progress | None = None,
+    progress: Progress | None = None, threads: int = DEFAULT_THREADS,
 ) -> RunSummary:
-    """Solve a CSV or Parquet export in this process, one chunk at a time, writing CSV to ``out``."""
+    """Solve a CSV or Parquet export in this process, chunk by chunk, writing CSV to ``out``.
+
+    ``threads`` chunks are solved at once; they are written in order, so the output is that
+    of a sequential run, and memory stays bounded by ``threads`` + 1 chunks.
+    """
     summary = RunSummary()
     writer = csv.writer(out, lineterminator="\n")
     writer.writerow(output_header(mapping))
@@ -742,12 +810,12 @@ def run_local(
             progress.update(amount, res.rows)
 
     if is_parquet(input_path):
-        for rows, header, count in read_parquet_chunks(str(input_path), mapping, chunk_size):
-            emit(solve_rows(rows, header, mapping, summary.rows + 1), count)
+        for res, amount in _in_order(_parquet_tasks(str(input_path), mapping, chunk_size), threads):
+            emit(res, amount)
         return summary
     with input_path.open("rb") as handle:
         header, _ = read_header(handle)
         check_header(header, mapping)
-        for data, lines in read_csv_chunks(handle, chunk_size):
-            emit(solve_chunk(data, lines, header, mapping, summary.rows + 1), len(data))
+        for res, amount in _in_order(_csv_tasks(handle, header, mapping, chunk_size), threads):
+            emit(res, amount)
     return summary
