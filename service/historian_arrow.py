@@ -33,6 +33,10 @@ except ImportError:  # the optional [parquet] extra: without it the Python path 
 
 __all__ = ["available", "solve_chunk", "usable"]
 
+#: pyarrow allocations of the back-fill: the system allocator, which returns a finished
+#: chunk's memory (pyarrow's default mimalloc pool kept ~50 MB more resident).
+_POOL = pa.system_memory_pool() if pa is not None else None
+
 #: Rows joined per pyarrow call (keeps a string array far below its 2 GiB offset limit).
 JOIN_ROWS = 1 << 20
 
@@ -62,6 +66,7 @@ def _read(data: bytes, header: Sequence[str], needed: list[str]) -> Any:
                 column_types={c: pa.string() for c in needed}, include_columns=needed,
                 strings_can_be_null=False, check_utf8=True,
             ),
+            memory_pool=_POOL,
         )
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
         return None
@@ -75,7 +80,8 @@ def _fixed_strings(chars: np.ndarray, length: np.ndarray, rows: np.ndarray, n: i
     full = np.zeros((n, width), dtype=np.uint8)
     full[rows] = chars[:, :width]
     fixed = pa.FixedSizeBinaryArray.from_buffers(pa.binary(width), n, [None, pa.py_buffer(full)])
-    return pc.utf8_rtrim(pc.cast(pc.cast(fixed, pa.binary()), pa.string()), characters="\0")
+    text = pc.cast(pc.cast(fixed, pa.binary(), memory_pool=_POOL), pa.string(), memory_pool=_POOL)
+    return pc.utf8_rtrim(text, characters="\0", memory_pool=_POOL)
 
 
 def _join(columns: list[Any], n: int) -> bytes:
@@ -83,8 +89,8 @@ def _join(columns: list[Any], n: int) -> bytes:
     parts = []
     for start in range(0, n, JOIN_ROWS):
         cols = [c.slice(start, JOIN_ROWS) if isinstance(c, pa.Array) else c for c in columns]
-        line = pc.binary_join_element_wise(*cols, ",")
-        line = pc.binary_join_element_wise(line, pa.scalar(""), "\n")
+        line = pc.binary_join_element_wise(*cols, ",", memory_pool=_POOL)
+        line = pc.binary_join_element_wise(line, pa.scalar(""), "\n", memory_pool=_POOL)
         _, offsets, values = line.buffers()
         off = np.frombuffer(offsets, dtype=np.int32, count=line.offset + len(line) + 1)
         parts.append(values.to_pybytes()[off[line.offset]: off[line.offset + len(line)]])
@@ -113,7 +119,7 @@ def solve_chunk(data: bytes, lines: int, header: Sequence[str], mapping: Mapping
     for c in dict.fromkeys(numeric):
         col = table.column(c)
         try:
-            v = pc.cast(col, pa.float64()).to_numpy()
+            v = pc.cast(col, pa.float64(), memory_pool=_POOL).to_numpy()
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
             v = None
         if v is not None and np.isfinite(v).all():
@@ -124,21 +130,22 @@ def solve_chunk(data: bytes, lines: int, header: Sequence[str], mapping: Mapping
     temperature, values = h._parse_values(n, mapping, cells, parsed, bad)
     sol = h._solve_values(n, temperature, values, bad, mapping, first_row)
 
-    columns: list[Any] = [table.column(c).combine_chunks() for c in (mapping.timestamp, *mapping.passthrough)]
-    columns.append(pc.cast(pa.array(np.arange(first_row, first_row + n, dtype=np.int64)), pa.string()))
-    columns.append(pc.if_else(pa.array(sol.ok), pa.scalar("true"), pa.scalar("false")))
+    columns: list[Any] = [table.column(c).combine_chunks(memory_pool=_POOL) for c in (mapping.timestamp, *mapping.passthrough)]
+    columns.append(pc.cast(pa.array(np.arange(first_row, first_row + n, dtype=np.int64)), pa.string(), memory_pool=_POOL))
+    columns.append(pc.if_else(pa.array(sol.ok), pa.scalar("true"), pa.scalar("false"), memory_pool=_POOL))
     for c in h._NUMERIC_OUT:
         chars, length = format_g10(sol.numbers[c]) if sol.solved_rows.size else (np.zeros((0, 1), np.uint8), np.zeros(0, np.int64))
         columns.append(_fixed_strings(chars, length, sol.solved_rows, n))
     if sol.checked_rows.size == n:
-        columns.append(pc.cast(pa.array(sol.iterations.astype(np.int64)), pa.string()))
+        columns.append(pc.cast(pa.array(sol.iterations.astype(np.int64)), pa.string(), memory_pool=_POOL))
     else:
         it = np.zeros(n, dtype=np.int64)
         it[sol.checked_rows] = sol.iterations
         mask = np.zeros(n, dtype=bool)
         mask[sol.checked_rows] = True
-        columns.append(pc.if_else(pa.array(mask), pc.cast(pa.array(it), pa.string()), pa.scalar("")))
+        columns.append(pc.if_else(pa.array(mask), pc.cast(pa.array(it), pa.string(), memory_pool=_POOL), pa.scalar(""),
+                                  memory_pool=_POOL))
     for c in ("warnings", "error_type", "error_field", "error_detail"):
         col = sol.text[c]
-        columns.append(pa.scalar("") if col is None else pa.array(col, type=pa.string()))
+        columns.append(pa.scalar("") if col is None else pa.array(col, type=pa.string(), memory_pool=_POOL))
     return h.ChunkResult(_join(columns, n) if n else b"", n, sol.errors)

@@ -32,20 +32,35 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from demo_sump import MAPPING, generate  # noqa: E402
 
 
+# Runs ``python -m service.cli ARGS`` and reports the process's own peak RSS (VmHWM; the
+# rusage maximum would include the forking benchmark's memory, which survives exec).
+_WRAPPER = """
+import atexit, runpy, sys
+def hwm():
+    try:
+        kb = next(int(l.split()[1]) for l in open('/proc/self/status') if l.startswith('VmHWM:'))
+    except (OSError, StopIteration):
+        import resource
+        kb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    sys.stderr.write(f'\\npeak-rss-kb {kb}\\n')
+atexit.register(hwm)
+sys.argv = ['protolyte', *sys.argv[1:]]
+runpy.run_module('service.cli', run_name='__main__')
+"""
+
+
 def run(cmd: list[str], tree: Path) -> tuple[float, str, float]:
-    """Wall time [s], last stderr line and peak RSS [MB] of ``cmd`` importing ``tree``'s code."""
+    """Wall time [s], last stderr line and peak RSS [MB] of ``protolyte ARGS`` (``cmd`` =
+    [python, -m, service.cli, ARGS…]) importing ``tree``'s code."""
     env = {**os.environ, "PYTHONPATH": str(tree)}
-    with tempfile.TemporaryFile() as err:
-        start = time.perf_counter()
-        proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=err, env=env, cwd=tree)
-        _, status, usage = os.wait4(proc.pid, 0)
-        elapsed = time.perf_counter() - start
-        proc.returncode = os.waitstatus_to_exitcode(status)
-        err.seek(0)
-        text = err.read().decode("utf-8", "replace").strip()
-    if proc.returncode not in (0, 1):
-        raise SystemExit(f"{' '.join(cmd)} failed ({proc.returncode}):\n{text}")
-    return elapsed, text.splitlines()[-1], usage.ru_maxrss / 1024
+    start = time.perf_counter()
+    proc = subprocess.run([cmd[0], "-c", _WRAPPER, *cmd[3:]], capture_output=True, text=True, env=env, cwd=tree, check=False)
+    elapsed = time.perf_counter() - start
+    lines = proc.stderr.strip().splitlines()
+    if proc.returncode not in (0, 1) or not lines or not lines[-1].startswith("peak-rss-kb"):
+        raise SystemExit(f"{' '.join(cmd)} failed ({proc.returncode}):\n{proc.stderr}")
+    summary = next((line for line in reversed(lines) if line.startswith("protolyte:")), lines[-2])
+    return elapsed, summary, int(lines[-1].split()[1]) / 1024
 
 
 def main() -> None:
