@@ -84,10 +84,12 @@ def _beta_with_activity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArr
     lo_i = np.maximum(ionic - d_i, 0.0)
     kern = BalanceKernel(p)
     x, psi = [], []
-    for at_ph, at_i in (
-        (ph + BETA_STEP_PH, ionic), (ph - BETA_STEP_PH, ionic), (ph, ionic + d_i), (ph, lo_i)
+    at_sample = kern.log_gammas(ionic)  # the two pH steps share the sample's γ
+    for at_ph, gam in (
+        (ph + BETA_STEP_PH, at_sample), (ph - BETA_STEP_PH, at_sample),
+        (ph, kern.log_gammas(ionic + d_i)), (ph, kern.log_gammas(lo_i)),
     ):
-        lg, lh, loh = kern.log_gammas(at_i)
+        lg, lh, loh = gam
         _, _, psi_k, pos, neg = kern.evaluate(at_ph, lg, lh, loh)
         x.append(neg - pos)
         psi.append(psi_k)

@@ -734,7 +734,12 @@ def _raise(exc: BaseException) -> ChunkResult:
 
 def _in_order(tasks: Iterator[tuple[_Task, float]], threads: int) -> Iterator[tuple[ChunkResult, float]]:
     """Run the chunk tasks on ``threads`` threads, results in input order; at most
-    ``threads`` + 1 chunks are in memory at once."""
+    ``threads`` + 1 chunks are in memory at once. The first chunk is solved alone, so the
+    caches it fills (thermodynamic data, formula masses, formatting tables) are filled once."""
+    first = next(tasks, None)
+    if first is None:
+        return
+    yield first[0](), first[1]
     if threads <= 1:
         for task, amount in tasks:
             yield task(), amount

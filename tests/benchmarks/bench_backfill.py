@@ -42,16 +42,18 @@ def hwm():
     except (OSError, StopIteration):
         import resource
         kb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-    sys.stderr.write(f'\\npeak-rss-kb {kb}\\n')
+    import resource
+    ru = resource.getrusage(resource.RUSAGE_SELF)
+    sys.stderr.write(f'\\ncpu-s {ru.ru_utime + ru.ru_stime:.2f}\\npeak-rss-kb {kb}\\n')
 atexit.register(hwm)
 sys.argv = ['protolyte', *sys.argv[1:]]
 runpy.run_module('service.cli', run_name='__main__')
 """
 
 
-def run(cmd: list[str], tree: Path) -> tuple[float, str, float]:
-    """Wall time [s], last stderr line and peak RSS [MB] of ``protolyte ARGS`` (``cmd`` =
-    [python, -m, service.cli, ARGS…]) importing ``tree``'s code."""
+def run(cmd: list[str], tree: Path) -> tuple[float, str, float, float]:
+    """Wall time [s], summary line, peak RSS [MB] and CPU time [s] of ``protolyte ARGS``
+    (``cmd`` = [python, -m, service.cli, ARGS…]) importing ``tree``'s code."""
     env = {**os.environ, "PYTHONPATH": str(tree)}
     start = time.perf_counter()
     proc = subprocess.run([cmd[0], "-c", _WRAPPER, *cmd[3:]], capture_output=True, text=True, env=env, cwd=tree, check=False)
@@ -59,8 +61,8 @@ def run(cmd: list[str], tree: Path) -> tuple[float, str, float]:
     lines = proc.stderr.strip().splitlines()
     if proc.returncode not in (0, 1) or not lines or not lines[-1].startswith("peak-rss-kb"):
         raise SystemExit(f"{' '.join(cmd)} failed ({proc.returncode}):\n{proc.stderr}")
-    summary = next((line for line in reversed(lines) if line.startswith("protolyte:")), lines[-2])
-    return elapsed, summary, int(lines[-1].split()[1]) / 1024
+    summary = next((line for line in reversed(lines) if line.startswith("protolyte:")), lines[-3])
+    return elapsed, summary, int(lines[-1].split()[1]) / 1024, float(lines[-2].split()[1])
 
 
 def main() -> None:
@@ -89,7 +91,7 @@ def main() -> None:
         trees = {"this tree": ROOT}
         if args.baseline is not None:
             trees = {f"baseline {args.baseline}": args.baseline.resolve(), **trees}
-        runs: dict[str, list[tuple[float, str, float]]] = {name: [] for name in trees}
+        runs: dict[str, list[tuple[float, str, float, float]]] = {name: [] for name in trees}
         outputs: dict[str, bytes] = {}
         for _ in range(args.rounds):
             for name, tree in trees.items():
@@ -99,27 +101,29 @@ def main() -> None:
         if len(outputs) == 2:
             print(f"outputs identical: {len(set(outputs.values())) == 1}")
         print()
-        print("| path | rows | wall time [s] (median of runs) | rows/s | peak RSS [MB] |")
-        print("| --- | --- | --- | --- | --- |")
-        medians = {}
+        print("| path | rows | wall time [s] (median of runs) | rows/s | peak RSS [MB] | CPU time [s] (median) |")
+        print("| --- | --- | --- | --- | --- | --- |")
+        medians, cpu = {}, {}
         for name, rs in runs.items():
             t = statistics.median(r[0] for r in rs)
-            medians[name] = t
+            medians[name], cpu[name] = t, statistics.median(r[3] for r in rs)
             times = ", ".join(f"{r[0]:.1f}" for r in rs)
             print(f"| in-process, chunk {args.chunk_size}, {name} | {args.rows} | {t:.1f} ({times}) | "
-                  f"{args.rows / t:,.0f} | {max(r[2] for r in rs):.0f} |")
+                  f"{args.rows / t:,.0f} | {max(r[2] for r in rs):.0f} | {cpu[name]:.1f} |")
         if not args.no_dask:
-            t_dask, line_dask, _ = run(
+            t_dask, line_dask, _, _ = run(
                 [*protolyte, *base, "--output", str(d / "parts"), "--dask", "--workers", str(args.workers)], ROOT
             )
             print(f"| Dask, local cluster, {args.workers} worker processes | {args.rows} | {t_dask:.1f} | "
-                  f"{args.rows / t_dask:,.0f} | (workers not measured) |")
+                  f"{args.rows / t_dask:,.0f} | (workers not measured) | — |")
         print()
         for name, rs in runs.items():
             print(f"{name}: {rs[-1][1]}")
         if len(medians) == 2:
             old, new = medians.values()
             print(f"speed-up of this tree over the baseline (ratio of median wall times): {old / new:.2f}×")
+            c_old, c_new = cpu.values()
+            print(f"CPU time ratio (baseline / this tree; threads add CPU, not wall time): {c_old / c_new:.2f}×")
         print(f"load average at the end {os.getloadavg()[0]:.1f} (other work on the machine slows both)")
 
 
