@@ -25,31 +25,24 @@ _EMIN, _EMAX = -36, 55  # decimal exponents the fast path can produce
 _cache: dict[str, NDArray] = {}
 
 
-def _digits5() -> NDArray[np.uint8]:
-    """Row i: the five ASCII digits of i (zero-padded), for i < 100 000."""
+def _digits5() -> NDArray[np.bytes_]:
+    """Item i: the five ASCII digits of i (zero-padded) as one S5 item, for i < 100 000."""
     t = _cache.get("digits5")
     if t is None:
         i = np.arange(100_000)
-        t = ((i[:, None] // np.array([10_000, 1000, 100, 10, 1])) % 10 + _ZERO).astype(np.uint8)
+        d = ((i[:, None] // np.array([10_000, 1000, 100, 10, 1])) % 10 + _ZERO).astype(np.uint8)
+        t = np.ascontiguousarray(d).view("S5").ravel()
         _cache["digits5"] = t
     return t
 
 
 def _scale(a: NDArray, s: NDArray) -> NDArray:
     """a·10^s for |s| ≤ 44 with exact powers of ten (one or two roundings)."""
-    y = a.copy()
     s1 = np.clip(s, -22, 22)
-    up = s1 >= 0
-    y[up] *= _P10[s1[up]]
-    y[~up] /= _P10[-s1[~up]]
+    y = np.where(s1 >= 0, a * _P10[np.maximum(s1, 0)], a / _P10[np.maximum(-s1, 0)])
     s2 = s - s1
-    more = s2 != 0
-    if more.any():
-        t, ym = s2[more], y[more]
-        up = t > 0
-        ym[up] *= _P10[t[up]]
-        ym[~up] /= _P10[-t[~up]]
-        y[more] = ym
+    if s2.any():
+        y = np.where(s2 > 0, y * _P10[np.maximum(s2, 0)], np.where(s2 < 0, y / _P10[np.maximum(-s2, 0)], y))
     return y
 
 
@@ -76,13 +69,13 @@ def _layout(d: NDArray[np.uint8], k: NDArray[np.int64], exp: int, negative: bool
             out[:, at + 2: at + 2 + lead] = _ZERO
             out[:, at + 2 + lead: at + 12 + lead] = d
             length = at + 2 + lead + k
-        out[col >= length[:, None]] = 0
+        out *= col < length[:, None]
         return out, length
     out[:, at] = d[:, 0]
     out[:, at + 1] = ord(".")
     out[:, at + 2: at + 11] = d[:, 1:]
     mant = at + np.where(k > 1, k + 1, 1)
-    out[col >= mant[:, None]] = 0
+    out *= col < mant[:, None]
     suffix = np.frombuffer(("e%+03d" % exp).encode("ascii"), dtype=np.uint8)
     rows = np.arange(n)
     for j, c in enumerate(suffix):
@@ -104,17 +97,15 @@ def format_g10(x: NDArray[np.float64]) -> tuple[NDArray[np.uint8], NDArray[np.in
     with np.errstate(all="ignore"):
         zero = a == 0.0
         fast = np.isfinite(a) & (a > 1e-35) & (a < 1e54)
-        e0 = np.zeros(n, dtype=np.int64)
-        e0[fast] = np.floor(np.log10(a[fast])).astype(np.int64)
-        y = np.full(n, 1e9)
-        y[fast] = _scale(a[fast], 9 - e0[fast])
+        e0 = np.floor(np.log10(np.where(fast, a, 1.0))).astype(np.int64)
+        y = _scale(np.where(fast, a, 1.0), 9 - e0)
         # floor(log10) may be one off next to a power of ten: correct it once.
         off = fast & ((y < 1e9) | (y >= 1e10))
         if off.any():
             e0[off] += np.where(y[off] >= 1e10, 1, -1)
             y[off] = _scale(a[off], 9 - e0[off])
         fast &= (y >= 1e9) & (y < 1e10)
-        y[~fast] = 1e9
+        y = np.where(fast, y, 1e9)
         r = np.floor(y)
         frac = y - r
         fast &= np.abs(frac - 0.5) > _TIE_MARGIN
@@ -124,15 +115,19 @@ def format_g10(x: NDArray[np.float64]) -> tuple[NDArray[np.uint8], NDArray[np.in
     exp = e0 + carry
     exp[~fast] = 0
     table5 = _digits5()
-    digits = np.empty((n, 10), dtype=np.uint8)
-    digits[:, :5] = table5[m // 100_000]
-    digits[:, 5:] = table5[m % 100_000]
+    digits = np.empty((n, 2), dtype="S5")
+    digits[:, 0] = table5[m // 100_000]
+    digits[:, 1] = table5[m % 100_000]
+    digits = digits.view(np.uint8).reshape(n, 10)
     k = 10 - np.argmax(digits[:, ::-1] != _ZERO, axis=1)  # digits left after stripping zeros
     # One layout per (exponent, sign) present: a column has only a few.
     code = (exp - _EMIN) * 2 + neg
     code[~fast] = -1
     present = np.flatnonzero(np.bincount(code[fast], minlength=1)) if fast.any() else []
     for c in present:
+        if len(present) == 1 and fast.all():  # the usual column: one layout for every row
+            chars, length = _layout(digits, k, int(c) // 2 + _EMIN, bool(c % 2))
+            break
         rows = np.flatnonzero(code == c)
         out, ln = _layout(digits[rows], k[rows], int(c) // 2 + _EMIN, bool(c % 2))
         chars[rows] = out
