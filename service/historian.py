@@ -17,10 +17,13 @@ non-finite, negative or out-of-range value are separated out and reported (row n
 column, reason); the good rows go to ``models.columns`` in one array solve. A row whose
 equilibrium cannot be trusted is reported with the solver's reason, never written as a
 number. Memory is bounded by the chunk size: the input is read, solved and written one
-chunk at a time.
+chunk at a time (in-process, ``threads`` neighbouring chunks at once, written in order).
 
-The same :func:`solve_text` solves a chunk in-process and a partition on a Dask worker
-(``service.historian_dask``), so both paths give the same rows.
+A chunk is parsed and its output joined by pyarrow where that gives the same bytes as
+Python's csv module (``service.historian_arrow``: plain chunks, pyarrow installed), else
+by the Python path here; numbers are written by ``service.historian_format`` (exactly
+``'%.10g'``). The same :func:`solve_chunk` solves a chunk in-process and on a Dask worker
+(``service.historian_dask``, via :func:`solve_bytes`), so both paths give the same rows.
 """
 
 from __future__ import annotations
