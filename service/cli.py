@@ -57,7 +57,7 @@ def build_parser() -> argparse.ArgumentParser:
     solve.add_argument("--scheduler", metavar="ADDRESS", help="with --mapping: run on the Dask cluster at ADDRESS (tcp://host:port; 'local' = --dask)")
     solve.add_argument("--workers", type=int, default=2, help="worker processes of the local Dask cluster (default %(default)s)")
     solve.add_argument("--partition-rows", type=int, help="rows per Dask partition, a multiple of --chunk-size (default 4 chunks)")
-    solve.add_argument("--threads", type=int, help="with --mapping, in-process: chunks solved at once on threads (default: the CPU count, at most 4)")
+    solve.add_argument("--threads", type=int, help="with --mapping, in-process: chunks solved at once on threads, written in order (default 1; more overlap parsing, solving and writing where cores are idle, one more chunk in memory each)")
     solve.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None, help="progress bar on stderr (default: when stderr is a terminal)")
     solve.add_argument(
         "--missing",

@@ -35,7 +35,6 @@ import io
 import itertools
 import json
 import math
-import os
 import sys
 import time
 from collections.abc import Callable, Iterator, Mapping, Sequence
@@ -724,9 +723,11 @@ class RunSummary:
         return len({e.row for e in self.errors})
 
 
-#: Chunks solved at once by ``run_local`` (threads: pyarrow, and numpy on whole columns,
-#: release the GIL, so parsing, solving and formatting of neighbouring chunks overlap).
-DEFAULT_THREADS = max(1, min(4, os.cpu_count() or 1))
+#: Chunks solved at once by ``run_local`` unless told otherwise. More threads overlap the
+#: parsing, solving and formatting of neighbouring chunks (pyarrow, and numpy on whole
+#: columns, release the GIL), at the memory of one more chunk each; on the shared 2-core
+#: machine two threads were not measurably faster than one, so one is the default.
+DEFAULT_THREADS = 1
 
 _Task = Callable[[], ChunkResult]
 

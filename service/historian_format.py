@@ -76,7 +76,7 @@ def _layout(d: NDArray[np.uint8], k: NDArray[np.int64], exp: int, negative: bool
     out[:, at + 2: at + 11] = d[:, 1:]
     mant = at + np.where(k > 1, k + 1, 1)
     out *= col < mant[:, None]
-    suffix = np.frombuffer(("e%+03d" % exp).encode("ascii"), dtype=np.uint8)
+    suffix = np.frombuffer(f"e{exp:+03d}".encode("ascii"), dtype=np.uint8)
     rows = np.arange(n)
     for j, c in enumerate(suffix):
         out[rows, mant + j] = c
@@ -140,7 +140,7 @@ def format_g10(x: NDArray[np.float64]) -> tuple[NDArray[np.uint8], NDArray[np.in
         length[zi] = 1 + neg[zi]
     other = np.flatnonzero(~fast & ~zero)
     if other.size:
-        texts = ["%.10g" % v for v in x[other].tolist()]
+        texts = ["%.10g" % v for v in x[other].tolist()]  # noqa: UP031 - the contract itself
         chars[other] = np.array(texts, dtype=f"S{WIDTH}").view(np.uint8).reshape(other.size, WIDTH)
         length[other] = [len(t) for t in texts]
     return chars, length

@@ -119,6 +119,8 @@ def main() -> None:
         print()
         for name, rs in runs.items():
             print(f"{name}: {rs[-1][1]}")
+        if not args.no_dask:
+            print(f"dask: {line_dask}")
         if len(medians) == 2:
             old, new = medians.values()
             print(f"speed-up of this tree over the baseline (ratio of median wall times): {old / new:.2f}×")
