@@ -18,8 +18,7 @@ from models import units, water
 from models.activity import model_code
 from models.derived import (
     PHENOLPHTHALEIN_ENDPOINT_PH,
-    TOTAL_ENDPOINT_PH,
-    alkalinity_eq_kg,
+    alkalinities_eq_kg,
     buffer_capacity,
 )
 from models.errors import InputError
@@ -145,11 +144,10 @@ def solve_columns(batch: ColumnBatch, *, derived: bool = True) -> dict[str, NDAr
         p = batch.problem
         ph = np.where(ok, st.ph, 7.0)
         beta = buffer_capacity(p, ph, st.ionic_strength)
-        args = (p, ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
         eq = formula_mass_g_mol("CaCO3") / 2.0 * 1e3
-        total = np.maximum(alkalinity_eq_kg(*args, TOTAL_ENDPOINT_PH), 0.0) * rho * eq
-        phen_eq = np.maximum(alkalinity_eq_kg(*args, PHENOLPHTHALEIN_ENDPOINT_PH), 0.0)
-        phen = np.where(ph > PHENOLPHTHALEIN_ENDPOINT_PH, phen_eq, 0.0) * rho * eq
+        total_eq, phen_eq = alkalinities_eq_kg(p, ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
+        total = np.maximum(total_eq, 0.0) * rho * eq
+        phen = np.where(ph > PHENOLPHTHALEIN_ENDPOINT_PH, np.maximum(phen_eq, 0.0), 0.0) * rho * eq
         out["buffer_capacity_mmol_l_per_ph"] = np.where(ok, beta * rho * 1e3, np.nan)
         out["alkalinity_total_mg_l_as_caco3"] = np.where(ok, total, np.nan)
         out["alkalinity_phenolphthalein_mg_l_as_caco3"] = np.where(ok, phen, np.nan)

@@ -19,7 +19,10 @@ if TYPE_CHECKING:
     from models.equilibrium import Solved
     from models.thermo import ThermoDatabase
 
-__all__ = ["TOTAL_ENDPOINT_PH", "PHENOLPHTHALEIN_ENDPOINT_PH", "Derived", "compute", "buffer_capacity", "alkalinity_eq_kg", "langelier_ph_s"]
+__all__ = [
+    "TOTAL_ENDPOINT_PH", "PHENOLPHTHALEIN_ENDPOINT_PH", "Derived", "compute", "buffer_capacity", "alkalinity_eq_kg",
+    "alkalinities_eq_kg", "langelier_ph_s",
+]
 
 #: Total alkalinity end point [pH], Standard Methods 2320 B (routine, industrial and
 #: complex samples, or where silicates/phosphates are present).
@@ -60,7 +63,9 @@ def buffer_capacity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArray[n
         lg = np.zeros(sub.charge.shape)
         _, df, *_ = balance(sub, ph[idx], lg, zero, zero)
         beta[idx] = -df
-    if (~ideal).any():
+    if (~ideal).all():  # every stream: no sub-problem to copy
+        beta[:] = _beta_with_activity(p, ph, ionic)
+    elif (~ideal).any():
         idx = np.nonzero(~ideal)[0]
         beta[idx] = _beta_with_activity(p.take(idx), ph[idx], ionic[idx])
     return beta
@@ -79,10 +84,12 @@ def _beta_with_activity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArr
     lo_i = np.maximum(ionic - d_i, 0.0)
     kern = BalanceKernel(p)
     x, psi = [], []
-    for at_ph, at_i in (
-        (ph + BETA_STEP_PH, ionic), (ph - BETA_STEP_PH, ionic), (ph, ionic + d_i), (ph, lo_i)
+    at_sample = kern.log_gammas(ionic)  # the two pH steps share the sample's γ
+    for at_ph, gam in (
+        (ph + BETA_STEP_PH, at_sample), (ph - BETA_STEP_PH, at_sample),
+        (ph, kern.log_gammas(ionic + d_i)), (ph, kern.log_gammas(lo_i)),
     ):
-        lg, lh, loh = kern.log_gammas(at_i)
+        lg, lh, loh = gam
         _, _, psi_k, pos, neg = kern.evaluate(at_ph, lg, lh, loh)
         x.append(neg - pos)
         psi.append(psi_k)
@@ -107,6 +114,35 @@ def alkalinity_eq_kg(
     return f_e - f_s
 
 
+def _charge_balance(p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, loh: NDArray) -> NDArray[np.float64]:
+    """F [eq/kg] at fixed γ: the first value of ``models.solver.balance``, computed alike."""
+    m, m_h, m_oh = species_state(p, ph, lg, lh, loh)
+    zm = p.charge * m
+    return p.strong_charge + m_h - m_oh + np.einsum("nkp->n", zm)
+
+
+def alkalinities_eq_kg(
+    p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, loh: NDArray
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Total and phenolphthalein alkalinity [eq/kg]: ``alkalinity_eq_kg`` at the two end
+    points, the closed sample and its balance at ``ph`` set up once; the phenolphthalein
+    value is 0 where ``ph`` is not above its end point (only the other streams are titrated)."""
+    m, _, _ = species_state(p, ph, lg, lh, loh)
+    closed = replace(p, total=m.sum(axis=-1), is_open=np.zeros_like(p.is_open))
+    f_s = _charge_balance(closed, ph, lg, lh, loh)
+    total = _charge_balance(closed, np.full_like(ph, TOTAL_ENDPOINT_PH), lg, lh, loh) - f_s
+    phen = np.zeros_like(ph)
+    above = ph > PHENOLPHTHALEIN_ENDPOINT_PH
+    if above.all():
+        phen[:] = _charge_balance(closed, np.full_like(ph, PHENOLPHTHALEIN_ENDPOINT_PH), lg, lh, loh) - f_s
+    elif above.any():
+        idx = np.nonzero(above)[0]
+        sub = closed.take(idx)
+        end = np.full(idx.size, PHENOLPHTHALEIN_ENDPOINT_PH)
+        phen[idx] = _charge_balance(sub, end, lg[idx], lh[idx], loh[idx]) - f_s[idx]
+    return total, phen
+
+
 def langelier_ph_s(
     pk2: NDArray, pks: NDArray, ca_mol_l: NDArray, hco3_mol_l: NDArray, ionic: NDArray, a_dh: NDArray
 ) -> NDArray[np.float64]:
@@ -124,9 +160,7 @@ def compute(sv: Solved, db: ThermoDatabase) -> Derived:
     ok = np.isfinite(st.ph)
     ph = np.where(ok, st.ph, 7.0)
     beta = buffer_capacity(p, ph, st.ionic_strength)
-    args = (p, ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
-    total = alkalinity_eq_kg(*args, TOTAL_ENDPOINT_PH)
-    phen = np.where(ph > PHENOLPHTHALEIN_ENDPOINT_PH, alkalinity_eq_kg(*args, PHENOLPHTHALEIN_ENDPOINT_PH), 0.0)
+    total, phen = alkalinities_eq_kg(p, ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
     rho = asm.density_kg_l
     eq_caco3 = formula_mass_g_mol("CaCO3") / 2.0
     warnings: list[list[str]] = [[] for _ in range(n)]

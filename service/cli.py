@@ -57,6 +57,7 @@ def build_parser() -> argparse.ArgumentParser:
     solve.add_argument("--scheduler", metavar="ADDRESS", help="with --mapping: run on the Dask cluster at ADDRESS (tcp://host:port; 'local' = --dask)")
     solve.add_argument("--workers", type=int, default=2, help="worker processes of the local Dask cluster (default %(default)s)")
     solve.add_argument("--partition-rows", type=int, help="rows per Dask partition, a multiple of --chunk-size (default 4 chunks)")
+    solve.add_argument("--threads", type=int, help="with --mapping, in-process: chunks solved at once on threads, written in order (default 1; more overlap parsing, solving and writing where cores are idle, one more chunk in memory each)")
     solve.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None, help="progress bar on stderr (default: when stderr is a terminal)")
     solve.add_argument(
         "--missing",
@@ -127,6 +128,9 @@ def _openapi(args: argparse.Namespace) -> int:
 def _solve(args: argparse.Namespace) -> int:
     if args.chunk_size is not None and args.chunk_size < 1:
         print("protolyte: --chunk-size must be at least 1", file=sys.stderr)
+        return 2
+    if args.threads is not None and args.threads < 1:
+        print("protolyte: --threads must be at least 1", file=sys.stderr)
         return 2
     if args.mapping is not None:
         return _solve_historian(args)
@@ -216,6 +220,7 @@ def _solve_historian(args: argparse.Namespace) -> int:
             try:
                 summary = historian.run_local(
                     args.input, mapping, out, chunk_size=chunk, on_error=report, progress=progress,
+                    threads=args.threads or historian.DEFAULT_THREADS,
                 )
             finally:
                 progress.close()

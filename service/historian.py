@@ -17,22 +17,28 @@ non-finite, negative or out-of-range value are separated out and reported (row n
 column, reason); the good rows go to ``models.columns`` in one array solve. A row whose
 equilibrium cannot be trusted is reported with the solver's reason, never written as a
 number. Memory is bounded by the chunk size: the input is read, solved and written one
-chunk at a time.
+chunk at a time (in-process, ``threads`` neighbouring chunks at once, written in order).
 
-The same :func:`solve_text` solves a chunk in-process and a partition on a Dask worker
-(``service.historian_dask``), so both paths give the same rows.
+A chunk is parsed and its output joined by pyarrow where that gives the same bytes as
+Python's csv module (``service.historian_arrow``: plain chunks, pyarrow installed), else
+by the Python path here; numbers are written by ``service.historian_format`` (exactly
+``'%.10g'``). The same :func:`solve_chunk` solves a chunk in-process and on a Dask worker
+(``service.historian_dask``, via :func:`solve_bytes`), so both paths give the same rows.
 """
 
 from __future__ import annotations
 
+import collections
 import csv
+import functools
 import io
 import itertools
 import json
 import math
 import sys
 import time
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import IO, Any
@@ -49,8 +55,11 @@ from models.solver import STATUS_MESSAGES
 from models.stream import ACTIVITY_MODELS
 from models.thermo import load_database
 from models.units import UNITS
+from service import historian_arrow
+from service.historian_format import format_g10_str
 
 __all__ = [
+    "DEFAULT_THREADS",
     "RESULT_COLUMNS",
     "VALUE_MAX",
     "ChunkResult",
@@ -68,8 +77,11 @@ __all__ = [
     "read_csv_chunks",
     "read_parquet_chunks",
     "run_local",
+    "solve_bytes",
+    "solve_chunk",
     "solve_rows",
     "solve_text",
+    "split_lines",
 ]
 
 #: Largest composition value accepted [in its unit], as in the HTTP schema.
@@ -276,18 +288,23 @@ def describe(err: RowError) -> str:
 
 @dataclass(slots=True)
 class ChunkResult:
-    """A solved chunk or partition: the output CSV text (no header) and its bad rows."""
+    """A solved chunk or partition: the output CSV (UTF-8 bytes, no header) and its bad rows."""
 
-    text: str
+    data: bytes
     rows: int
     errors: list[RowError] = field(default_factory=list)
 
+    @property
+    def text(self) -> str:
+        """The output CSV as text."""
+        return self.data.decode("utf-8")
 
-def _parse_column(
-    cells: Sequence[str], column: str, default: float | None, lo: float, hi: float, unit: str,
-    bad: dict[int, list[tuple[str, str]]],
-) -> NDArray[np.float64]:
-    """Floats of one column; bad cells go to ``bad[i]`` as (column, reason) and become NaN."""
+
+_Bad = dict[int, list[tuple[str, str]]]
+
+
+def _floats(cells: Sequence[str], column: str, default: float | None, bad: _Bad) -> tuple[NDArray, NDArray]:
+    """Python's float() of each cell (empty → default); the cells parsed (not reported)."""
     try:
         values = np.array(cells, dtype=np.float64)
     except ValueError:
@@ -311,6 +328,21 @@ def _parse_column(
         checked[[i for i in bad if any(c == column for c, _ in bad[i])]] = False
     else:
         checked = np.ones(len(cells), dtype=bool)
+    return values, checked
+
+
+def _parse_column(
+    cells: Sequence[str], column: str, default: float | None, lo: float, hi: float, unit: str,
+    bad: _Bad, values: NDArray[np.float64] | None = None,
+) -> NDArray[np.float64]:
+    """Floats of one column; bad cells go to ``bad[i]`` as (column, reason) and become NaN.
+
+    ``values``: the cells already parsed (every one a finite number), e.g. by pyarrow.
+    """
+    if values is None:
+        values, checked = _floats(cells, column, default, bad)
+    else:
+        checked = np.ones(values.size, dtype=bool)
     finite = np.isfinite(values)
     for i in np.flatnonzero(checked & ~finite):
         bad.setdefault(int(i), []).append((column, f"{cells[i].strip()!r} is not a finite number"))
@@ -378,35 +410,47 @@ def _csv_cell(text: str) -> str:
     return text
 
 
-def solve_rows(rows: list[list[str]], header: Sequence[str], mapping: Mapping_, first_row: int) -> ChunkResult:
-    """Solve one chunk of parsed CSV rows (``first_row`` = number of ``rows[0]``)."""
-    n = len(rows)
-    width = len(header)
-    bad: dict[int, list[tuple[str, str]]] = {}
-    ragged: dict[int, list[tuple[str, str]]] = {}
-    if set(map(len, rows)) - {width}:
-        for i, r in enumerate(rows):
-            if len(r) != width:
-                ragged[i] = [("(row)", f"has {len(r)} fields, the header has {width}")]
-                rows[i] = (r + [""] * width)[:width]
-    index = {c: header.index(c) for c in mapping.input_columns()}
-    cols = list(zip(*rows)) if n else [() for _ in header]
-    cell = {c: cols[j] for c, j in index.items()}
-    t_spec = mapping.temperature_c
-    if t_spec.column is None:
-        temperature = np.full(n, t_spec.default)
-    else:
-        temperature = _parse_column(cell[t_spec.column], t_spec.column, t_spec.default, *TEMPERATURE_RANGE_C, "°C", bad)
-    values = {
-        e.name: _parse_column(cell[e.column], e.column, e.default, 0.0, VALUE_MAX, e.unit, bad)
-        for e in mapping.composition
-    }
-    bad.update(ragged)  # a ragged row is reported for its shape, not for the cells padded in
+@dataclass(slots=True)
+class _Solved:
+    """A chunk's results: the numbers of its solved rows and its sparse text columns."""
+
+    n: int
+    first_row: int
+    errors: list[RowError]
+    ok: NDArray[np.bool_]  # (n,) solved rows
+    solved_rows: NDArray[np.int_]  # indices of the solved rows
+    numbers: dict[str, NDArray[np.float64]]  # _NUMERIC_OUT columns at solved_rows
+    checked_rows: NDArray[np.int_]  # rows that went to the solver (with an iteration count)
+    iterations: NDArray[np.int_]  # at checked_rows
+    text: dict[str, list[str] | None]  # warnings, error_*: n CSV cells each, None if all empty
+
+
+def _solve_values(
+    n: int, temperature: NDArray, values: dict[str, NDArray], bad: _Bad, mapping: Mapping_, first_row: int
+) -> _Solved:
+    """Solve the good rows of a parsed chunk; the result and error columns."""
     good = np.ones(n, dtype=bool)
     good[list(bad)] = False
     gi = np.flatnonzero(good)
-    out_cols: dict[str, NDArray] = {}
-    status = np.array([], dtype=object)
+    text: dict[str, list[str] | None] = {c: None for c in ("warnings", "error_type", "error_field", "error_detail")}
+
+    def cells(name: str) -> list[str]:
+        col = text[name]
+        if col is None:
+            col = text[name] = [""] * n
+        return col
+
+    errors: list[RowError] = []
+    for i, reasons in sorted(bad.items()):
+        number = first_row + i
+        errors.extend(RowError(number, c, why) for c, why in reasons)
+        cells("error_type")[i] = "validation-error"
+        cells("error_field")[i] = _csv_cell("; ".join(dict.fromkeys(c for c, _ in reasons)))
+        cells("error_detail")[i] = _csv_cell("; ".join(f"{c}: {why}" for c, why in reasons))
+    ok_all = np.zeros(n, dtype=bool)
+    numbers: dict[str, NDArray] = {c: np.empty(0) for c in _NUMERIC_OUT}
+    solved_rows = np.array([], dtype=np.intp)
+    iterations = np.array([], dtype=np.int64)
     if gi.size:
         batch = problem_from_columns(
             {e.name: (values[e.name][gi], e.unit) for e in mapping.composition},
@@ -420,55 +464,136 @@ def solve_rows(rows: list[list[str]], header: Sequence[str], mapping: Mapping_, 
         status = res["status"]
         solved = status == STATUS_MESSAGES[0]
         warn = _warnings(mapping, [e.name for e in mapping.composition], temperature[gi], out_cols, solved)
-    # Output, column by column (no per-row Python beyond one join per line).
-    blank = np.full(n, "", dtype=object)
-    lead = [_csv_column(cell[c]) for c in (mapping.timestamp, *mapping.passthrough)]
-    numbers = [str(first_row + i) for i in range(n)]
-    ok_all = np.zeros(n, dtype=bool)
-    out_txt: dict[str, NDArray] = {c: blank.copy() for c in RESULT_COLUMNS[2:]}
-    errors: list[RowError] = []
-    for i, reasons in sorted(bad.items()):
-        number = first_row + i
-        errors.extend(RowError(number, c, why) for c, why in reasons)
-        out_txt["error_type"][i] = "validation-error"
-        out_txt["error_field"][i] = _csv_cell("; ".join(dict.fromkeys(c for c, _ in reasons)))
-        out_txt["error_detail"][i] = _csv_cell("; ".join(f"{c}: {why}" for c, why in reasons))
-    if gi.size:
-        codes = {v: c for c, v in STATUS_MESSAGES.items()}
         solved_rows = gi[solved]
         ok_all[solved_rows] = True
-        for c in _NUMERIC_OUT:
-            out_txt[c][solved_rows] = [_FLOAT % v for v in out_cols[c][solved].tolist()]
-        out_txt["solver_iterations"][gi] = [str(v) for v in out_cols["iterations"].tolist()]
-        out_txt["warnings"][gi] = [_csv_cell(w) if w else "" for w in warn]
+        numbers = {c: out_cols[c][solved] for c in _NUMERIC_OUT}
+        iterations = np.asarray(out_cols["iterations"])
+        for k, w in enumerate(warn):
+            if w:
+                cells("warnings")[int(gi[k])] = _csv_cell(w)
+        codes = {v: c for c, v in STATUS_MESSAGES.items()}
         for k in np.flatnonzero(~solved):
             i, s = int(gi[k]), str(status[k])
             why = f"{s}: {failure_message(codes[s])}"
             errors.append(RowError(first_row + i, "(stream)", why, "solve-failed"))
-            out_txt["error_type"][i] = "solve-failed"
-            out_txt["error_detail"][i] = _csv_cell(why)
+            cells("error_type")[i] = "solve-failed"
+            cells("error_detail")[i] = _csv_cell(why)
         errors.sort(key=lambda e: e.row)
-    ok_txt = np.where(ok_all, "true", "false").tolist()
-    columns = [*lead, numbers, ok_txt, *(out_txt[c].tolist() for c in RESULT_COLUMNS[2:])]
+    return _Solved(n, first_row, errors, ok_all, solved_rows, numbers, gi, iterations, text)
+
+
+def _parse_rows(
+    rows: list[list[str]], header: Sequence[str], mapping: Mapping_
+) -> tuple[dict[str, Sequence[str]], NDArray, dict[str, NDArray], _Bad]:
+    """Cells of the mapped columns, temperature, composition values and bad rows of parsed CSV rows."""
+    n = len(rows)
+    width = len(header)
+    bad: _Bad = {}
+    ragged: _Bad = {}
+    if set(map(len, rows)) - {width}:
+        for i, r in enumerate(rows):
+            if len(r) != width:
+                ragged[i] = [("(row)", f"has {len(r)} fields, the header has {width}")]
+                rows[i] = (r + [""] * width)[:width]
+    index = {c: header.index(c) for c in mapping.input_columns()}
+    cols = list(zip(*rows)) if n else [() for _ in header]
+    cell = {c: cols[j] for c, j in index.items()}
+    temperature, values = _parse_values(n, mapping, cell, {}, bad)
+    bad.update(ragged)  # a ragged row is reported for its shape, not for the cells padded in
+    return cell, temperature, values, bad
+
+
+def _parse_values(
+    n: int, mapping: Mapping_, cell: Mapping[str, Sequence[str]], parsed: Mapping[str, NDArray], bad: _Bad
+) -> tuple[NDArray, dict[str, NDArray]]:
+    """Temperature and composition columns (``parsed``: columns already parsed, all finite)."""
+    t_spec = mapping.temperature_c
+    if t_spec.column is None:
+        temperature = np.full(n, t_spec.default)
+    else:
+        c = t_spec.column
+        temperature = _parse_column(cell.get(c, ()), c, t_spec.default, *TEMPERATURE_RANGE_C, "°C", bad, parsed.get(c))
+    values = {
+        e.name: _parse_column(cell.get(e.column, ()), e.column, e.default, 0.0, VALUE_MAX, e.unit, bad, parsed.get(e.column))
+        for e in mapping.composition
+    }
+    return temperature, values
+
+
+def _lines_python(lead: list[list[str]], sol: _Solved) -> bytes:
+    """The output lines of a solved chunk, joined in Python."""
+    n = sol.n
+    blank = [""] * n
+    numbers = []
+    for c in _NUMERIC_OUT:
+        col = np.full(n, "", dtype=object)
+        col[sol.solved_rows] = format_g10_str(sol.numbers[c])
+        numbers.append(col.tolist())
+    iters = np.full(n, "", dtype=object)
+    iters[sol.checked_rows] = [str(v) for v in sol.iterations.tolist()]
+    columns = [
+        *lead,
+        [str(sol.first_row + i) for i in range(n)],
+        np.where(sol.ok, "true", "false").tolist(),
+        *numbers,
+        iters.tolist(),
+        *(sol.text[c] or blank for c in ("warnings", "error_type", "error_field", "error_detail")),
+    ]
     lines = list(map(",".join, zip(*columns)))
-    return ChunkResult("\n".join(lines) + ("\n" if lines else ""), n, errors)
+    return ("\n".join(lines) + ("\n" if lines else "")).encode("utf-8")
+
+
+def solve_rows(rows: list[list[str]], header: Sequence[str], mapping: Mapping_, first_row: int) -> ChunkResult:
+    """Solve one chunk of parsed CSV rows (``first_row`` = number of ``rows[0]``)."""
+    cell, temperature, values, bad = _parse_rows(rows, header, mapping)
+    sol = _solve_values(len(rows), temperature, values, bad, mapping, first_row)
+    lead = [_csv_column(cell[c]) for c in (mapping.timestamp, *mapping.passthrough)]
+    return ChunkResult(_lines_python(lead, sol), sol.n, sol.errors)
+
+
+def solve_chunk(data: bytes, lines: int, header: Sequence[str], mapping: Mapping_, first_row: int) -> ChunkResult:
+    """Solve one chunk of CSV data lines (``lines`` of them, UTF-8 bytes): with pyarrow's
+    parser and array formatting where the chunk is plain CSV (no quotes, no bare carriage
+    returns, no NUL, every row the header's width), else with Python's csv module. Both
+    give the same bytes."""
+    if historian_arrow.usable(data):
+        res = historian_arrow.solve_chunk(data, lines, header, mapping, first_row)
+        if res is not None:
+            return res
+    rows = list(csv.reader(io.StringIO(data.decode("utf-8"))))
+    return solve_rows(rows, header, mapping, first_row)
+
+
+def split_lines(data: bytes, chunk_size: int) -> Iterator[tuple[bytes, int]]:
+    """(bytes, line count) of consecutive pieces of ``chunk_size`` lines (the last may be shorter)."""
+    view = np.frombuffer(data, dtype=np.uint8)
+    ends = np.flatnonzero(view == 10)
+    start = 0
+    for k in range(chunk_size - 1, ends.size, chunk_size):
+        end = int(ends[k]) + 1
+        yield data[start:end], chunk_size
+        start = end
+    if start < len(data):
+        rest = ends.size % chunk_size if ends.size else 0
+        yield data[start:], rest + (0 if data.endswith(b"\n") else 1)
+
+
+def solve_bytes(data: bytes, header: Sequence[str], mapping: Mapping_, first_row: int, chunk_size: int) -> ChunkResult:
+    """Solve CSV data lines (no header) chunk by chunk; the bytes of a partition or a chunk."""
+    parts: list[bytes] = []
+    errors: list[RowError] = []
+    rows_done = 0
+    for piece, lines in split_lines(data, chunk_size):
+        res = solve_chunk(piece, lines, header, mapping, first_row + rows_done)
+        parts.append(res.data)
+        errors.extend(res.errors)
+        rows_done += res.rows
+    return ChunkResult(b"".join(parts), rows_done, errors)
 
 
 def solve_text(text: str, header: Sequence[str], mapping: Mapping_, first_row: int, chunk_size: int) -> ChunkResult:
     """Solve CSV data lines (no header) chunk by chunk; the text of a partition or a chunk."""
-    reader = csv.reader(io.StringIO(text))
-    parts: list[str] = []
-    errors: list[RowError] = []
-    rows_done = 0
-    while True:
-        rows = list(itertools.islice(reader, chunk_size))
-        if not rows:
-            break
-        res = solve_rows(rows, header, mapping, first_row + rows_done)
-        parts.append(res.text)
-        errors.extend(res.errors)
-        rows_done += res.rows
-    return ChunkResult("".join(parts), rows_done, errors)
+    return solve_bytes(text.encode("utf-8"), header, mapping, first_row, chunk_size)
 
 
 def check_header(header: Sequence[str], mapping: Mapping_) -> None:
@@ -493,14 +618,13 @@ def read_header(handle: IO[bytes]) -> tuple[list[str], int]:
     return next(csv.reader([text])), len(line)
 
 
-def read_csv_chunks(handle: IO[bytes], chunk_size: int) -> Iterator[tuple[str, int]]:
-    """(text of up to ``chunk_size`` data lines, their bytes) from a binary handle after its header."""
+def read_csv_chunks(handle: IO[bytes], chunk_size: int) -> Iterator[tuple[bytes, int]]:
+    """(up to ``chunk_size`` data lines as bytes, their number) from a binary handle after its header."""
     while True:
         lines = list(itertools.islice(handle, chunk_size))
         if not lines:
             return
-        data = b"".join(lines)
-        yield data.decode("utf-8"), len(data)
+        yield b"".join(lines), len(lines)
 
 
 def is_parquet(path: Path) -> bool:
@@ -541,15 +665,15 @@ def read_parquet_chunks(path: str, mapping: Mapping_, chunk_size: int, row_group
 
 def solve_parquet(path: str, mapping: Mapping_, chunk_size: int, first_row: int, row_groups: Sequence[int]) -> ChunkResult:
     """Solve row groups of a Parquet file (a Dask partition, or the whole file in-process)."""
-    parts: list[str] = []
+    parts: list[bytes] = []
     errors: list[RowError] = []
     done = 0
     for rows, header, count in read_parquet_chunks(path, mapping, chunk_size, row_groups):
         res = solve_rows(rows, header, mapping, first_row + done)
-        parts.append(res.text)
+        parts.append(res.data)
         errors.extend(res.errors)
         done += count
-    return ChunkResult("".join(parts), done, errors)
+    return ChunkResult(b"".join(parts), done, errors)
 
 
 class Progress:
@@ -599,17 +723,93 @@ class RunSummary:
         return len({e.row for e in self.errors})
 
 
+#: Chunks solved at once by ``run_local`` unless told otherwise. More threads overlap the
+#: parsing, solving and formatting of neighbouring chunks (pyarrow, and numpy on whole
+#: columns, release the GIL), at the memory of one more chunk each; on the shared 2-core
+#: machine two threads were not measurably faster than one, so one is the default.
+DEFAULT_THREADS = 1
+
+_Task = Callable[[], ChunkResult]
+
+
+def _raise(exc: BaseException) -> ChunkResult:
+    raise exc
+
+
+def _in_order(tasks: Iterator[tuple[_Task, float]], threads: int) -> Iterator[tuple[ChunkResult, float]]:
+    """Run the chunk tasks on ``threads`` threads, results in input order; at most
+    ``threads`` + 1 chunks are in memory at once. The first chunk is solved alone, so the
+    caches it fills (thermodynamic data, formula masses, formatting tables) are filled once."""
+    first = next(tasks, None)
+    if first is None:
+        return
+    yield first[0](), first[1]
+    if threads <= 1:
+        for task, amount in tasks:
+            yield task(), amount
+        return
+    pending: collections.deque[tuple[Future[ChunkResult], float]] = collections.deque()
+    with ThreadPoolExecutor(threads, thread_name_prefix="protolyte-solve") as pool:
+        try:
+            for task, amount in tasks:
+                pending.append((pool.submit(task), amount))
+                if len(pending) > threads:
+                    fut, amt = pending.popleft()
+                    yield fut.result(), amt
+            while pending:
+                fut, amt = pending.popleft()
+                yield fut.result(), amt
+        finally:
+            for fut, _ in pending:
+                fut.cancel()
+
+
+def _csv_tasks(handle: IO[bytes], header: list[str], mapping: Mapping_, chunk_size: int) -> Iterator[tuple[_Task, float]]:
+    """One task per chunk, numbered as the sequential run numbers them (a row per line,
+    except where quoted fields span lines: those chunks are parsed here to count rows)."""
+    first = 1
+    for data, lines in read_csv_chunks(handle, chunk_size):
+        if b'"' in data:
+            try:
+                rows = list(csv.reader(io.StringIO(data.decode("utf-8"))))
+            except (UnicodeDecodeError, csv.Error) as exc:
+                yield functools.partial(_raise, exc), len(data)
+                return
+            yield functools.partial(solve_rows, rows, header, mapping, first), len(data)
+            first += len(rows)
+        else:
+            yield functools.partial(solve_chunk, data, lines, header, mapping, first), len(data)
+            first += lines
+
+
+def _parquet_tasks(path: str, mapping: Mapping_, chunk_size: int) -> Iterator[tuple[_Task, float]]:
+    first = 1
+    for rows, header, count in read_parquet_chunks(path, mapping, chunk_size):
+        yield functools.partial(solve_rows, rows, header, mapping, first), count
+        first += count
+
+
 def run_local(
     input_path: Path, mapping: Mapping_, out: IO[str], *, chunk_size: int, on_error: Any = None,
-    progress: Progress | None = None,
+    progress: Progress | None = None, threads: int = DEFAULT_THREADS,
 ) -> RunSummary:
-    """Solve a CSV or Parquet export in this process, one chunk at a time, writing CSV to ``out``."""
+    """Solve a CSV or Parquet export in this process, chunk by chunk, writing CSV to ``out``.
+
+    ``threads`` chunks are solved at once; they are written in order, so the output is that
+    of a sequential run, and memory stays bounded by ``threads`` + 1 chunks.
+    """
     summary = RunSummary()
     writer = csv.writer(out, lineterminator="\n")
     writer.writerow(output_header(mapping))
+    raw = getattr(out, "buffer", None)  # a text file's bytes underneath: no decode/encode
+    if raw is not None:
+        out.flush()
 
     def emit(res: ChunkResult, amount: float) -> None:
-        out.write(res.text)
+        if raw is not None:
+            raw.write(res.data)
+        else:
+            out.write(res.text)
         summary.rows += res.rows
         summary.errors.extend(res.errors)
         if on_error is not None:
@@ -619,12 +819,12 @@ def run_local(
             progress.update(amount, res.rows)
 
     if is_parquet(input_path):
-        for rows, header, count in read_parquet_chunks(str(input_path), mapping, chunk_size):
-            emit(solve_rows(rows, header, mapping, summary.rows + 1), count)
+        for res, amount in _in_order(_parquet_tasks(str(input_path), mapping, chunk_size), threads):
+            emit(res, amount)
         return summary
     with input_path.open("rb") as handle:
         header, _ = read_header(handle)
         check_header(header, mapping)
-        for text, nbytes in read_csv_chunks(handle, chunk_size):
-            emit(solve_text(text, header, mapping, summary.rows + 1, chunk_size), nbytes)
+        for res, amount in _in_order(_csv_tasks(handle, header, mapping, chunk_size), threads):
+            emit(res, amount)
     return summary

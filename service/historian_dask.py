@@ -7,7 +7,7 @@ a partition is and what a worker does with one:
   (``rows_per_partition`` data lines, a multiple of the chunk size). The client scans
   the file once for line ends to place the ranges and number the rows; each worker
   reads its own range (a path every worker can open: a shared file system, or an
-  fsspec URL), solves it chunk by chunk with :func:`service.historian.solve_text` and
+  fsspec URL), solves it chunk by chunk with :func:`service.historian.solve_bytes` and
   writes ``part-NNNNN.csv`` in the output directory. Line ends inside quoted fields
   are not supported (historian exports do not have them).
 * Parquet: a partition is a row group.
@@ -39,7 +39,7 @@ from service.historian import (
     output_header,
     read_header,
     solve_parquet,
-    solve_text,
+    solve_bytes,
 )
 
 __all__ = ["DaskUnavailable", "Partition", "part_name", "plan_csv", "plan_parquet", "run_dask", "solve_partition"]
@@ -134,14 +134,15 @@ def solve_partition(
         with _open(path) as handle:
             handle.seek(part.start)
             data = handle.read(part.end - part.start)
-        res = solve_text(data.decode("utf-8"), header, mapping, part.first_row, chunk_size)
+        res = solve_bytes(data, header, mapping, part.first_row, chunk_size)
     target = os.path.join(out_dir, part_name(part.index))
     tmp = f"{target}.{uuid.uuid4().hex}.tmp"
     import csv
 
     with open(tmp, "w", newline="", encoding="utf-8") as out:
         csv.writer(out, lineterminator="\n").writerow(output_header(mapping))
-        out.write(res.text)
+        out.flush()
+        out.buffer.write(res.data)
     os.replace(tmp, target)
     return res.rows, res.errors, target
 
