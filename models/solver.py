@@ -22,7 +22,14 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from models.activity import DAVIES, DAVIES_LINEAR_TERM, HARD_LIMIT_MOL_KG, IDEAL, log_gamma
+from models.activity import (
+    DAVIES,
+    DAVIES_LINEAR_TERM,
+    EXTENDED_DH,
+    HARD_LIMIT_MOL_KG,
+    IDEAL,
+    log_gamma,
+)
 
 __all__ = [
     "PH_MIN",
@@ -265,6 +272,198 @@ class BalanceKernel:
         return g, dg, ionic, pos, neg
 
 
+class _LoopKernel:
+    """The charge balance of a (sub)batch as the solver's loop evaluates it.
+
+    Same quantities as ``BalanceKernel.evaluate`` plus dI/dpH, computed species-major:
+    arrays are (K, N) per slot and (P − 1, K, N) per species, so every operation runs
+    over a long contiguous stream axis. Each slot's weights are taken relative to its
+    species 0, w_j = c_j · Kc_j with Kc_j = 10^−cum_pk_j (0 for padded species, set once)
+    and c_j the activity-dependent factor, so an evaluation needs exponentials only per
+    stream (per slot for Davies slots with a charged species 0, per species for the
+    extended Debye–Hückel model) instead of one per species, and m0 = Σ w ≥ 1.
+
+    With s = T/m0 (closed) the per-slot sums reduce to the moments m_i = Σ_j j^i w_j,
+    i = 0…3, and the top charge t (z_j = t − j): Σ z m = T (t − j̄), Σ z² m = T t² −
+    2 t s m1 + s m2, d(Σ z m)/dpH = −ln10 · s (m2 − m1 j̄) (the buffer term), and
+    d(Σ z² m)/dpH = ln10 · [s (m3 − m2 j̄) − 2 t s (m2 − m1 j̄)]. An open slot (fixed
+    species 0, s = its molality) has j̄ = 0 and its own total s·m0.
+    """
+
+    def __init__(self, p: BalanceProblem, code: int | None) -> None:
+        self.p, self.code = p, code
+        n, _, n_sp = p.charge.shape
+        self.n_sp = n_sp
+        cum = np.ascontiguousarray(p.cum_pk[..., 1:].transpose(2, 1, 0))
+        with np.errstate(over="ignore"):
+            self.kc = np.exp(-LN10 * cum)  # (P-1, K, N): 10^-cum_pk, exactly 0 for pads
+        self.top = np.ascontiguousarray(p.charge[..., 0].T)
+        self.any_top = bool(np.any(self.top != 0))
+        self.top_pos = np.maximum(self.top, 0.0)
+        self.any_pos = bool(self.top_pos.any())
+        zpos = np.maximum(p.charge, 0.0)
+        # Positive species beyond species 0 (a custom system with top charge ≥ +2).
+        self.zpos_rest = (
+            np.ascontiguousarray(zpos[..., 1:].transpose(2, 1, 0)) if np.any(zpos[..., 1:]) else None
+        )
+        self.any_open = bool(p.is_open.any())
+        self.is_open = np.ascontiguousarray(p.is_open.T)
+        self.total = np.where(self.is_open, 0.0, p.total.T)
+        self.open_neutral = np.ascontiguousarray(p.open_neutral.T)
+        self.sum_tt = (self.total * self.top).sum(axis=0)
+        self.sum_tt2 = (self.total * self.top * self.top).sum(axis=0)
+        self.strong_pos = np.maximum(p.strong_charge, 0.0)
+        self.strong_neg = np.maximum(-p.strong_charge, 0.0)
+        self.half_strong_ionic = 0.5 * p.strong_ionic
+        self.pkw = p.pkw
+        self.a_dh = p.a_dh
+        self.b_dh = p.b_dh
+        if code == EXTENDED_DH:
+            z2 = np.ascontiguousarray((p.charge * p.charge).transpose(2, 1, 0))
+            self.neg_a_z2 = -p.a_dh * z2
+            self.b_size = p.b_dh * np.ascontiguousarray(p.ion_size.transpose(2, 1, 0))
+
+    _ARRAYS = ("kc", "top", "top_pos", "zpos_rest", "is_open", "total", "open_neutral")
+    _STREAM = ("sum_tt", "sum_tt2", "strong_pos", "strong_neg", "half_strong_ionic", "pkw", "a_dh", "b_dh")
+
+    def take(self, idx: NDArray[np.int_]) -> _LoopKernel:
+        k = object.__new__(_LoopKernel)
+        k.p, k.code, k.n_sp = self.p.take(idx), self.code, self.n_sp
+        for name in self._ARRAYS:
+            a = getattr(self, name)
+            setattr(k, name, None if a is None else a[..., idx])
+        for name in self._STREAM:
+            setattr(k, name, getattr(self, name)[idx])
+        if self.code == EXTENDED_DH:
+            k.neg_a_z2, k.b_size = self.neg_a_z2[..., idx], self.b_size[..., idx]
+        k.any_top, k.any_pos, k.any_open = self.any_top, self.any_pos, self.any_open
+        return k
+
+    def log_gamma_ions(self, ionic: NDArray) -> tuple[NDArray, NDArray]:
+        """log10 γ of H+ and OH− (the values ``BalanceKernel.log_gammas`` gives)."""
+        if self.code == IDEAL:
+            zero = np.zeros_like(ionic)
+            return zero, zero
+        if self.code == DAVIES:
+            sqrt_i = np.sqrt(ionic)
+            g = -self.a_dh * (sqrt_i / (1.0 + sqrt_i) - DAVIES_LINEAR_TERM * ionic)
+            return g, g
+        if self.code == EXTENDED_DH:
+            sqrt_i = np.sqrt(ionic)
+            lh = -self.a_dh * (sqrt_i / (1.0 + self.b_dh * self.p.size_h * sqrt_i))
+            loh = -self.a_dh * (sqrt_i / (1.0 + self.b_dh * self.p.size_oh * sqrt_i))
+            return lh, loh
+        _, lh, loh = gammas(self.p, ionic)
+        return lh, loh
+
+    def _weights(self, ph: NDArray, ionic: NDArray):
+        """(factors, lh, loh): the weight of species j ≥ 1 relative to species 0 is
+        kc[j−1] · factors[j−1] (each factor broadcasts against (K, N))."""
+        u = LN10 * ph
+        p = self.p
+        if self.code == IDEAL or self.code == DAVIES:
+            lh, loh = self.log_gamma_ions(ionic)
+            # Davies: log γ_j − log γ_0 = g (z_j² − t²) = g (j² − 2 t j).
+            gl = LN10 * lh
+            per_stream = [np.exp(j * u - (j * j) * gl) for j in range(1, self.n_sp)]
+            if self.code == DAVIES and self.any_top:
+                tg = np.exp((2.0 * gl) * self.top)
+                out, acc = [], None
+                for j, f in enumerate(per_stream):
+                    acc = tg if j == 0 else acc * tg
+                    out.append(acc * f)
+                return out, lh, loh
+            return per_stream, lh, loh
+        if self.code == EXTENDED_DH:
+            sqrt_i = np.sqrt(ionic)
+            lg = self.neg_a_z2 * (sqrt_i / (1.0 + self.b_size * sqrt_i))
+            lh, loh = self.log_gamma_ions(ionic)
+        else:
+            lg_n, lh, loh = gammas(p, ionic)
+            lg = np.ascontiguousarray(lg_n.transpose(2, 1, 0))
+        d = lg[1:] - lg[0]
+        d *= -LN10
+        d += np.multiply.outer(np.arange(1, self.n_sp, dtype=float), u)[:, None, :]
+        return list(np.exp(d)), lh, loh
+
+    def evaluate(self, ph: NDArray, ionic: NDArray):
+        """G = ln P − ln N, dG/dpH, the ionic strength implied at ``ph`` with γ(``ionic``),
+        its derivative dI/dpH at fixed γ, and P, N [eq/kg]."""
+        factors, lh, loh = self._weights(ph, ionic)
+        kc = self.kc
+        if self.n_sp == 1:
+            m0 = np.ones(self.top.shape)
+            m1, m2, m3 = np.zeros_like(m0), np.zeros_like(m0), np.zeros_like(m0)
+        szp = szpj = None
+        for j in range(1, self.n_sp):
+            w = kc[j - 1] * factors[j - 1]
+            if j == 1:
+                m0 = w + 1.0
+                m1, m2, m3 = w, w.copy(), w.copy()
+            else:
+                m0 += w
+                jw = w * float(j)
+                m1 += jw
+                jw *= j
+                m2 += jw
+                jw *= j
+                m3 += jw
+            if self.zpos_rest is not None:
+                wz = w * self.zpos_rest[j - 1]
+                szp = wz if szp is None else szp + wz
+                wz *= j
+                szpj = wz if szpj is None else szpj + wz
+        inv = 1.0 / m0
+        jbar = m1 * inv
+        if self.any_open:
+            s = np.where(self.is_open, self.open_neutral, self.total * inv)
+            jbar = np.where(self.is_open, 0.0, jbar)
+            t_total = np.where(self.is_open, s * m0, self.total)
+        else:
+            s = self.total * inv
+        x1, x2, x3 = s * m1, s * m2, s * m3
+        d2 = x2 - x1 * jbar          # T·var(j) for a closed slot
+        d3 = x3 - x2 * jbar
+        t = self.top
+        if self.any_open:
+            q = np.where(self.is_open, x1, 0.0)
+            sum_tt, sum_tt2 = (t * t_total).sum(axis=0), (t * t * t_total).sum(axis=0)
+            d_sys = (d2 - t * q).sum(axis=0)
+            f_i = (d3 + t * t * q).sum(axis=0)
+        else:
+            sum_tt, sum_tt2 = self.sum_tt, self.sum_tt2
+            d_sys = d2.sum(axis=0)
+            f_i = d3.sum(axis=0)
+        sum_x1 = x1.sum(axis=0)
+        e_sys = sum_tt2 + x2.sum(axis=0)
+        if self.any_top:
+            e_sys -= 2.0 * (t * x1).sum(axis=0)
+            f_i -= 2.0 * (t * d2).sum(axis=0)
+        b_sys = sum_tt - sum_x1
+        if self.any_pos or szp is not None:
+            zp = self.top_pos if szp is None else szp + self.top_pos
+            sp = s * zp
+            a_sys = sp.sum(axis=0)
+            c = sp * jbar
+            if szpj is not None:
+                c -= s * szpj
+            c_sys = -c.sum(axis=0)
+        else:
+            a_sys = c_sys = 0.0
+        m_h = np.exp(-LN10 * (ph + lh))
+        m_oh = np.exp(LN10 * (ph - self.pkw - loh))
+        pos = self.strong_pos + m_h + a_sys
+        neg = self.strong_neg + m_oh + (a_sys - b_sys)
+        dpos = LN10 * (c_sys - m_h)
+        dneg = LN10 * (m_oh + c_sys + d_sys)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            g = np.log(pos) - np.log(neg)
+            dg = dpos / pos - dneg / neg
+        new_i = self.half_strong_ionic + 0.5 * (m_h + m_oh + e_sys)
+        di = (0.5 * LN10) * (m_oh - m_h + f_i)
+        return g, dg, new_i, di, pos, neg, lh, loh
+
+
 #: Streams solved together at most: larger batches are solved in slices of this size,
 #: which keeps the working arrays in cache (the time per stream stays flat) and changes no
 #: result (every stream's iteration is its own).
@@ -307,7 +506,9 @@ def _solve_slice(
     set, which is compacted as it shrinks.
     """
     n = p.n_streams
-    full = BalanceKernel(p)
+    codes = np.unique(p.activity_code)
+    code = int(codes[0]) if codes.size == 1 else None
+    full = _LoopKernel(p, code)
     ph = np.full(n, 7.0) if ph_guess is None else np.clip(ph_guess, PH_MIN + 0.01, PH_MAX - 0.01)
     lo, hi = np.full(n, PH_MIN), np.full(n, PH_MAX)
     ideal = p.activity_code == IDEAL
@@ -323,8 +524,7 @@ def _solve_slice(
             k = full.take(rows)
             act = np.ones(rows.size, dtype=bool)
         x, cur = ph[rows], ionic[rows]
-        lg, lh, loh = k.log_gammas(cur)
-        g, dg, new_i, _, _ = k.evaluate(x, lg, lh, loh)
+        g, dg, new_i, _, _, _, _, _ = k.evaluate(x, cur)
         above = g > 0
         lo_r = np.where(above, x, lo[rows])
         hi_r = np.where(above, hi[rows], x)
@@ -334,16 +534,18 @@ def _solve_slice(
         # Strict: a Newton step of ~0 from a bracket end is converged, not a reason to bisect.
         bad = ~np.isfinite(newton) | (newton < lo_r) | (newton > hi_r)
         nxt = np.where(bad, 0.5 * (lo_r + hi_r), newton)
-        i_ok = ideal[rows] | (np.abs(new_i - cur) <= I_ATOL + I_RTOL * new_i)
+        ideal_r = ideal[rows]
+        i_ok = ideal_r | (np.abs(new_i - cur) <= I_ATOL + I_RTOL * new_i)
         small = np.isfinite(step) & (np.abs(step) < PH_TOL)
         conv = act & i_ok & (small | (hi_r - lo_r < PH_TOL))
         # Nested mode (after JOINT_STEPS): hold I until the pH has settled for it.
         nested = iters[rows] >= JOINT_STEPS
         settled = (np.isfinite(step) & (np.abs(step) < 1e-7)) | (hi_r - lo_r < 1e-7)
         update_i = ~i_ok & (~nested | settled)
+        i_next = new_i
         # The root moves with γ by about |Δlog γ| ≤ z²·A·|Δ√I| (z² ≤ 9 here, A < 0.61):
         # widen the bracket by a safe multiple of that, not more, so it still shrinks.
-        shift = 10.0 * k.p.a_dh * np.abs(np.sqrt(new_i) - np.sqrt(cur)) + 1e-9
+        shift = 10.0 * k.a_dh * np.abs(np.sqrt(i_next) - np.sqrt(cur)) + 1e-9
         margin = np.where(update_i, np.where(nested, shift + 1e-6, shift), 0.0)
         lo_r = np.maximum(PH_MIN, np.minimum(lo_r, nxt) - margin)
         hi_r = np.minimum(PH_MAX, np.maximum(hi_r, nxt) + margin)
@@ -352,16 +554,14 @@ def _solve_slice(
         ph[rows] = np.where(act, np.where(conv, np.where(small & ~bad, newton, x), nxt), ph[rows])
         # A converged stream keeps the ionic strength its pH was solved with, so the
         # reported residual is that of the pH returned.
-        ionic[rows] = np.where(act & ~conv & update_i, new_i, ionic[rows])
+        ionic[rows] = np.where(act & ~conv & update_i, i_next, ionic[rows])
         iters[rows] += act
         done[rows[conv]] = True
         if done.all():
             break
-    lg, lh, loh = full.log_gammas(ionic)
-    _, _, ionic_actual, pos, neg = full.evaluate(ph, lg, lh, loh)
+    _, _, ionic_actual, _, pos, neg, lh, loh = full.evaluate(ph, ionic)
     f, scale = pos - neg, pos + neg
-    if lg is None:
-        lg = np.zeros(p.charge.shape)
+    lg = _log_gamma_species(p, code, ionic)
     status = np.full(n, OK)
     status[~done] = NOT_CONVERGED
     status[(ph <= PH_MIN + 1e-6) & (f < 0)] = BELOW_RANGE
@@ -381,3 +581,14 @@ def _solve_slice(
         iterations=iters,
         status=status,
     )
+
+
+def _log_gamma_species(p: BalanceProblem, code: int | None, ionic: NDArray) -> NDArray:
+    """log10 γ of the system species (N, K, P), as ``BalanceKernel.log_gammas`` gives it."""
+    if code == IDEAL:
+        return np.zeros(p.charge.shape)
+    if code == DAVIES:
+        sqrt_i = np.sqrt(ionic)
+        g = -p.a_dh * (sqrt_i / (1.0 + sqrt_i) - DAVIES_LINEAR_TERM * ionic)
+        return p.charge * p.charge * g[:, None, None]
+    return gammas(p, ionic)[0]
