@@ -272,63 +272,80 @@ class BalanceKernel:
         return g, dg, ionic, pos, neg
 
 
+def _sum_slots(a: NDArray) -> NDArray:
+    """Σ over the slot axis of a (K, N) array, one slot after the other: numpy's own sum
+    over axis 0 is pairwise from 8 slots on for a single stream (a contiguous column) but
+    sequential for many, which would make a stream's rounding depend on its batch."""
+    if a.shape[0] == 1:
+        return a[0].copy()
+    out = a[0] + a[1]
+    for k in range(2, a.shape[0]):
+        out += a[k]
+    return out
+
+
 class _LoopKernel:
     """The charge balance of a (sub)batch as the solver's loop evaluates it.
 
     Same quantities as ``BalanceKernel.evaluate`` plus dI/dpH, computed species-major:
     arrays are (K, N) per slot and (P − 1, K, N) per species, so every operation runs
     over a long contiguous stream axis. Each slot's weights are taken relative to its
-    species 0, w_j = c_j · Kc_j with Kc_j = 10^−cum_pk_j (0 for padded species, set once)
-    and c_j the activity-dependent factor, so an evaluation needs exponentials only per
-    stream (per slot for Davies slots with a charged species 0, per species for the
-    extended Debye–Hückel model) instead of one per species, and m0 = Σ w ≥ 1.
+    species 0, w_j = Kc_j · c_j with Kc_j = 10^−cum_pk_j (set once, exactly 0 for padded
+    species) and c_j the activity-dependent factor, so an evaluation needs exponentials
+    per stream (and per slot with a charged species 0 under Davies, per species under
+    extended Debye–Hückel) instead of one per species, and m0 = Σ w ≥ 1.
 
-    With s = T/m0 (closed) the per-slot sums reduce to the moments m_i = Σ_j j^i w_j,
+    With s = T/m0 (closed) the slot sums reduce to the moments m_i = Σ_j j^i w_j,
     i = 0…3, and the top charge t (z_j = t − j): Σ z m = T (t − j̄), Σ z² m = T t² −
     2 t s m1 + s m2, d(Σ z m)/dpH = −ln10 · s (m2 − m1 j̄) (the buffer term), and
     d(Σ z² m)/dpH = ln10 · [s (m3 − m2 j̄) − 2 t s (m2 − m1 j̄)]. An open slot (fixed
-    species 0, s = its molality) has j̄ = 0 and its own total s·m0.
+    species 0, s = its molality) has j̄ = 0 and its own total s·m0. Terms in t and in
+    positive species are summed over the slots where some stream has them only (the
+    others add exact zeros), and every sum over slots runs slot by slot.
     """
 
     def __init__(self, p: BalanceProblem, code: int | None) -> None:
         self.p, self.code = p, code
-        n, _, n_sp = p.charge.shape
-        self.n_sp = n_sp
+        self.n_sp = p.charge.shape[2]
         cum = np.ascontiguousarray(p.cum_pk[..., 1:].transpose(2, 1, 0))
         with np.errstate(over="ignore"):
             self.kc = np.exp(-LN10 * cum)  # (P-1, K, N): 10^-cum_pk, exactly 0 for pads
         self.top = np.ascontiguousarray(p.charge[..., 0].T)
-        self.any_top = bool(np.any(self.top != 0))
-        self.top_pos = np.maximum(self.top, 0.0)
-        self.any_pos = bool(self.top_pos.any())
+        self.two_top = 2.0 * self.top
+        self.top_rows = [k for k in range(self.top.shape[0]) if self.top[k].any()]
         zpos = np.maximum(p.charge, 0.0)
+        self.top_pos = np.ascontiguousarray(zpos[..., 0].T)
         # Positive species beyond species 0 (a custom system with top charge ≥ +2).
         self.zpos_rest = (
             np.ascontiguousarray(zpos[..., 1:].transpose(2, 1, 0)) if np.any(zpos[..., 1:]) else None
         )
+        self.pos_rows = [k for k in range(self.top.shape[0]) if self.top_pos[k].any()]
         self.any_open = bool(p.is_open.any())
         self.is_open = np.ascontiguousarray(p.is_open.T)
         self.total = np.where(self.is_open, 0.0, p.total.T)
         self.open_neutral = np.ascontiguousarray(p.open_neutral.T)
-        self.sum_tt = (self.total * self.top).sum(axis=0)
-        self.sum_tt2 = (self.total * self.top * self.top).sum(axis=0)
+        self.sum_tt = _sum_slots(self.total * self.top)
+        self.sum_tt2 = _sum_slots(self.total * self.top * self.top)
         self.strong_pos = np.maximum(p.strong_charge, 0.0)
         self.strong_neg = np.maximum(-p.strong_charge, 0.0)
         self.half_strong_ionic = 0.5 * p.strong_ionic
-        self.pkw = p.pkw
-        self.a_dh = p.a_dh
-        self.b_dh = p.b_dh
+        self.pkw, self.a_dh, self.b_dh = p.pkw, p.a_dh, p.b_dh
+        self.b_size_h, self.b_size_oh = p.b_dh * p.size_h, p.b_dh * p.size_oh
         if code == EXTENDED_DH:
             z2 = np.ascontiguousarray((p.charge * p.charge).transpose(2, 1, 0))
             self.neg_a_z2 = -p.a_dh * z2
             self.b_size = p.b_dh * np.ascontiguousarray(p.ion_size.transpose(2, 1, 0))
 
-    _ARRAYS = ("kc", "top", "top_pos", "zpos_rest", "is_open", "total", "open_neutral")
-    _STREAM = ("sum_tt", "sum_tt2", "strong_pos", "strong_neg", "half_strong_ionic", "pkw", "a_dh", "b_dh")
+    _ARRAYS = ("kc", "top", "two_top", "top_pos", "zpos_rest", "is_open", "total", "open_neutral")
+    _STREAM = ("sum_tt", "sum_tt2", "strong_pos", "strong_neg", "half_strong_ionic", "pkw",
+               "a_dh", "b_dh", "b_size_h", "b_size_oh")
 
     def take(self, idx: NDArray[np.int_]) -> _LoopKernel:
+        """The kernel of the streams at ``idx`` (the problem itself is taken only where
+        the mixed-model activity coefficients need it)."""
         k = object.__new__(_LoopKernel)
-        k.p, k.code, k.n_sp = self.p.take(idx), self.code, self.n_sp
+        k.p = self.p.take(idx) if self.code not in (IDEAL, DAVIES, EXTENDED_DH) else None
+        k.code, k.n_sp, k.any_open = self.code, self.n_sp, self.any_open
         for name in self._ARRAYS:
             a = getattr(self, name)
             setattr(k, name, None if a is None else a[..., idx])
@@ -336,7 +353,8 @@ class _LoopKernel:
             setattr(k, name, getattr(self, name)[idx])
         if self.code == EXTENDED_DH:
             k.neg_a_z2, k.b_size = self.neg_a_z2[..., idx], self.b_size[..., idx]
-        k.any_top, k.any_pos, k.any_open = self.any_top, self.any_pos, self.any_open
+        k.top_rows = [r for r in self.top_rows if k.top[r].any()]
+        k.pos_rows = [r for r in self.pos_rows if k.top_pos[r].any()]
         return k
 
     def log_gamma_ions(self, ionic: NDArray) -> tuple[NDArray, NDArray]:
@@ -350,106 +368,116 @@ class _LoopKernel:
             return g, g
         if self.code == EXTENDED_DH:
             sqrt_i = np.sqrt(ionic)
-            lh = -self.a_dh * (sqrt_i / (1.0 + self.b_dh * self.p.size_h * sqrt_i))
-            loh = -self.a_dh * (sqrt_i / (1.0 + self.b_dh * self.p.size_oh * sqrt_i))
+            lh = -self.a_dh * (sqrt_i / (1.0 + self.b_size_h * sqrt_i))
+            loh = -self.a_dh * (sqrt_i / (1.0 + self.b_size_oh * sqrt_i))
             return lh, loh
         _, lh, loh = gammas(self.p, ionic)
         return lh, loh
 
     def _weights(self, ph: NDArray, ionic: NDArray):
-        """(factors, lh, loh): the weight of species j ≥ 1 relative to species 0 is
-        kc[j−1] · factors[j−1] (each factor broadcasts against (K, N))."""
+        """(w, lh, loh): w yields each species j ≥ 1's weights relative to species 0, (K, N)."""
         u = LN10 * ph
-        p = self.p
         if self.code == IDEAL or self.code == DAVIES:
             lh, loh = self.log_gamma_ions(ionic)
-            # Davies: log γ_j − log γ_0 = g (z_j² − t²) = g (j² − 2 t j).
-            gl = LN10 * lh
-            per_stream = [np.exp(j * u - (j * j) * gl) for j in range(1, self.n_sp)]
-            if self.code == DAVIES and self.any_top:
-                tg = np.exp((2.0 * gl) * self.top)
-                out, acc = [], None
-                for j, f in enumerate(per_stream):
-                    acc = tg if j == 0 else acc * tg
-                    out.append(acc * f)
-                return out, lh, loh
-            return per_stream, lh, loh
+            return self._weights_davies(u, LN10 * lh), lh, loh
         if self.code == EXTENDED_DH:
             sqrt_i = np.sqrt(ionic)
             lg = self.neg_a_z2 * (sqrt_i / (1.0 + self.b_size * sqrt_i))
             lh, loh = self.log_gamma_ions(ionic)
         else:
-            lg_n, lh, loh = gammas(p, ionic)
+            lg_n, lh, loh = gammas(self.p, ionic)
             lg = np.ascontiguousarray(lg_n.transpose(2, 1, 0))
         d = lg[1:] - lg[0]
         d *= -LN10
         d += np.multiply.outer(np.arange(1, self.n_sp, dtype=float), u)[:, None, :]
-        return list(np.exp(d)), lh, loh
+        np.exp(d, out=d)
+        d *= self.kc
+        return d, lh, loh
 
-    def evaluate(self, ph: NDArray, ionic: NDArray):
-        """G = ln P − ln N, dG/dpH, the ionic strength implied at ``ph`` with γ(``ionic``),
-        its derivative dI/dpH at fixed γ, and P, N [eq/kg]."""
-        factors, lh, loh = self._weights(ph, ionic)
-        kc = self.kc
-        if self.n_sp == 1:
-            m0 = np.ones(self.top.shape)
-            m1, m2, m3 = np.zeros_like(m0), np.zeros_like(m0), np.zeros_like(m0)
-        szp = szpj = None
+    def _weights_davies(self, u: NDArray, gl: NDArray):
+        # Davies: log γ_j − log γ_0 = g (z_j² − t²) = g (j² − 2 t j), the same g for all:
+        # a per-stream factor 10^(j pH − j² g) and, where t ≠ 0, (10^(2 t g))^j per slot.
+        tg = [np.exp(gl * self.two_top[r]) for r in self.top_rows]
+        pw = list(tg)
         for j in range(1, self.n_sp):
-            w = kc[j - 1] * factors[j - 1]
+            w = self.kc[j - 1] * np.exp(j * u - (j * j) * gl)
+            for i, r in enumerate(self.top_rows):
+                if j > 1:
+                    pw[i] = pw[i] * tg[i]
+                w[r] *= pw[i]
+            yield w
+
+    def evaluate(self, ph: NDArray, ionic: NDArray, *, slope: bool = True):
+        """G = ln P − ln N, dG/dpH, the ionic strength implied at ``ph`` with γ(``ionic``),
+        its derivative dI/dpH at fixed γ (None unless ``slope``), P, N [eq/kg] and the
+        log10 γ of H+ and OH−."""
+        weights, lh, loh = self._weights(ph, ionic)
+        m0 = m1 = m2 = m3 = szp = szpj = None
+        for j, w in enumerate(weights, start=1):
             if j == 1:
                 m0 = w + 1.0
-                m1, m2, m3 = w, w.copy(), w.copy()
+                m1 = m2 = m3 = w
             else:
                 m0 += w
                 jw = w * float(j)
-                m1 += jw
+                m1 = m1 + jw if j == 2 else np.add(m1, jw, out=m1)
                 jw *= j
-                m2 += jw
-                jw *= j
-                m3 += jw
+                m2 = m2 + jw if j == 2 else np.add(m2, jw, out=m2)
+                if slope:
+                    jw *= j
+                    m3 = m3 + jw if j == 2 else np.add(m3, jw, out=m3)
             if self.zpos_rest is not None:
                 wz = w * self.zpos_rest[j - 1]
                 szp = wz if szp is None else szp + wz
-                wz *= j
+                wz = wz * j
                 szpj = wz if szpj is None else szpj + wz
+        if m0 is None:  # no system has a second species
+            m0 = np.ones(self.top.shape)
+            m1 = m2 = m3 = np.zeros_like(m0)
         inv = 1.0 / m0
         jbar = m1 * inv
         if self.any_open:
             s = np.where(self.is_open, self.open_neutral, self.total * inv)
             jbar = np.where(self.is_open, 0.0, jbar)
-            t_total = np.where(self.is_open, s * m0, self.total)
         else:
             s = self.total * inv
-        x1, x2, x3 = s * m1, s * m2, s * m3
-        d2 = x2 - x1 * jbar          # T·var(j) for a closed slot
-        d3 = x3 - x2 * jbar
+        x1, x2 = s * m1, s * m2
+        d2 = x1 * jbar
+        np.subtract(x2, d2, out=d2)  # T·var(j) for a closed slot
+        sum_x1 = _sum_slots(x1)
+        e_sys = _sum_slots(x2)
+        d_sys = _sum_slots(d2)
+        if slope:
+            d3 = x2 * jbar
+            np.subtract(s * m3, d3, out=d3)
+            f_i = _sum_slots(d3)
         t = self.top
         if self.any_open:
+            t_total = np.where(self.is_open, s * m0, self.total)
             q = np.where(self.is_open, x1, 0.0)
-            sum_tt, sum_tt2 = (t * t_total).sum(axis=0), (t * t * t_total).sum(axis=0)
-            d_sys = (d2 - t * q).sum(axis=0)
-            f_i = (d3 + t * t * q).sum(axis=0)
+            sum_tt, sum_tt2 = _sum_slots(t * t_total), _sum_slots(t * t * t_total)
+            d_sys -= _sum_slots(t * q)
+            if slope:
+                f_i += _sum_slots(t * t * q)
         else:
             sum_tt, sum_tt2 = self.sum_tt, self.sum_tt2
-            d_sys = d2.sum(axis=0)
-            f_i = d3.sum(axis=0)
-        sum_x1 = x1.sum(axis=0)
-        e_sys = sum_tt2 + x2.sum(axis=0)
-        if self.any_top:
-            e_sys -= 2.0 * (t * x1).sum(axis=0)
-            f_i -= 2.0 * (t * d2).sum(axis=0)
+        e_sys += sum_tt2
+        for r in self.top_rows:
+            e_sys -= self.two_top[r] * x1[r]
+            if slope:
+                f_i -= self.two_top[r] * d2[r]
         b_sys = sum_tt - sum_x1
-        if self.any_pos or szp is not None:
-            zp = self.top_pos if szp is None else szp + self.top_pos
-            sp = s * zp
-            a_sys = sp.sum(axis=0)
-            c = sp * jbar
-            if szpj is not None:
-                c -= s * szpj
-            c_sys = -c.sum(axis=0)
+        a_sys = c_sys = 0.0
+        if szp is None:
+            for r in self.pos_rows:
+                sp = s[r] * self.top_pos[r]
+                a_sys = a_sys + sp
+                c_sys = c_sys - sp * jbar[r]
         else:
-            a_sys = c_sys = 0.0
+            szp += self.top_pos
+            sp = s * szp
+            a_sys = _sum_slots(sp)
+            c_sys = _sum_slots(s * szpj - sp * jbar)
         m_h = np.exp(-LN10 * (ph + lh))
         m_oh = np.exp(LN10 * (ph - self.pkw - loh))
         pos = self.strong_pos + m_h + a_sys
@@ -460,7 +488,7 @@ class _LoopKernel:
             g = np.log(pos) - np.log(neg)
             dg = dpos / pos - dneg / neg
         new_i = self.half_strong_ionic + 0.5 * (m_h + m_oh + e_sys)
-        di = (0.5 * LN10) * (m_oh - m_h + f_i)
+        di = (0.5 * LN10) * (m_oh - m_h + f_i) if slope else None
         return g, dg, new_i, di, pos, neg, lh, loh
 
 
@@ -566,7 +594,7 @@ def _solve_slice(
         done[rows[conv]] = True
         if done.all():
             break
-    _, _, ionic_actual, _, pos, neg, lh, loh = full.evaluate(ph, ionic)
+    _, _, ionic_actual, _, pos, neg, lh, loh = full.evaluate(ph, ionic, slope=False)
     f, scale = pos - neg, pos + neg
     lg = _log_gamma_species(p, code, ionic)
     status = np.full(n, OK)

@@ -81,3 +81,41 @@ def test_loop_kernel_take_is_the_kernel_of_the_sub_batch(mix: str) -> None:
     b = _LoopKernel(p.take(idx), code).evaluate(ph, ionic)
     for x, y in zip(a, b):
         assert np.array_equal(x, y)
+
+
+def test_a_stream_with_many_systems_gets_the_same_answer_alone_or_in_a_batch() -> None:
+    # Slot sums run over the slot axis of (K, N) arrays; numpy sums a (K, 1) array's
+    # column pairwise from 8 terms on but a (K, N) one term by term, so the kernel adds
+    # slots one by one: a lone stream (or the last one left in a compacted batch) must
+    # round exactly as it does among others.
+    from models.equilibrium import solve_many
+
+    names = ("carbonate", "phosphate", "ammonia", "acetate", "sulfate", "borate",
+             "sulfide", "formate", "propionate", "fluoride", "nitrite", "silicate")
+    target = StreamSpec(tuple(Entry(s, 0.1 + 0.23 * i, "mmol/L") for i, s in enumerate(names))
+                        + (Entry("Na+", 4.0, "mmol/L"),), temperature_c=31.0)
+    others = [StreamSpec((Entry("Na+", 40.0 * k, "mmol/L"), Entry("sulfate", 9.0 * k, "mmol/L"),
+                          *(Entry(s, 0.5 * k, "mmol/L") for s in names[:9])), 60.0)
+              for k in range(1, 4)]
+    alone = solve_many([target])[0]
+    mixed = solve_many(others[:2] + [target] + others[2:])[2]
+    assert mixed.ph == alone.ph
+    assert mixed.ionic_strength_mol_l == alone.ionic_strength_mol_l
+
+
+@pytest.mark.parametrize("model", MODELS)
+def test_loop_kernel_rounds_a_stream_alike_whatever_the_batch_size(model: str) -> None:
+    names = ("carbonate", "phosphate", "ammonia", "acetate", "sulfate", "borate",
+             "sulfide", "formate", "propionate", "fluoride", "nitrite", "silicate")
+    specs = [StreamSpec(tuple(Entry(s, 0.1 + 0.23 * ((i + k) % 5), "mmol/L")
+                              for i, s in enumerate(names)) + (Entry("Na+", 4.0 + k, "mmol/L"),),
+                        temperature_c=20.0 + 7 * k, activity_model=model) for k in range(5)]
+    p = _problem(specs)
+    codes = np.unique(p.activity_code)
+    code = int(codes[0])
+    ph, ionic = np.linspace(4.0, 9.0, 5), np.linspace(0.001, 0.02, 5)
+    batch = _LoopKernel(p, code).evaluate(ph, ionic)
+    for i in range(5):
+        one = _LoopKernel(p.take(np.array([i])), code).evaluate(ph[i:i + 1], ionic[i:i + 1])
+        for x, y in zip(batch, one):
+            assert x[i] == y[0]
