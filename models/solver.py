@@ -496,6 +496,8 @@ class _LoopKernel:
 #: which keeps the working arrays in cache (the time per stream stays flat) and changes no
 #: result (every stream's iteration is its own).
 SLICE_STREAMS = 16_384
+#: The working set is compacted when fewer than this fraction of it is still iterating.
+COMPACT_BELOW = 0.6
 
 
 def solve_balance(
@@ -534,66 +536,81 @@ def _solve_slice(
     pH solved exactly at each step (3 fewer steps on average than taking the value at
     the current pH). A stream not converged after JOINT_STEPS falls back to nested
     iteration — ionic strength held until its pH has converged, then updated to the
-    value implied at that pH — which cannot cycle. Converged streams leave the working
-    set, which is compacted as it shrinks.
+    value implied at that pH — which cannot cycle. A stream's result is stored when it
+    converges; the working arrays (all streams started together, so the step count is
+    the loop's) drop converged streams once they are a sizeable part of them.
     """
     n = p.n_streams
     codes = np.unique(p.activity_code)
     code = int(codes[0]) if codes.size == 1 else None
     full = _LoopKernel(p, code)
     ph = np.full(n, 7.0) if ph_guess is None else np.clip(ph_guess, PH_MIN + 0.01, PH_MAX - 0.01)
-    lo, hi = np.full(n, PH_MIN), np.full(n, PH_MAX)
     ideal = p.activity_code == IDEAL
     ionic = np.where(ideal, 0.0, 0.5 * p.strong_ionic if ionic_guess is None else ionic_guess)
-    iters = np.zeros(n, dtype=int)
+    iters = np.full(n, MAX_NEWTON)
     done = np.zeros(n, dtype=bool)
-    rows = np.arange(n)
-    k = full
-    for _ in range(MAX_NEWTON):
-        act = ~done[rows]
-        if act.sum() < 0.6 * rows.size:
-            rows = rows[act]
-            k = full.take(rows)
-            act = np.ones(rows.size, dtype=bool)
-        x, cur = ph[rows], ionic[rows]
+    # Working set: rows of the batch, their pH, ionic strength, bracket, and kernel.
+    rows, k, is_ideal = np.arange(n), full, ideal
+    x, cur = ph.copy(), ionic.copy()
+    lo, hi = np.full(n, PH_MIN), np.full(n, PH_MAX)
+    live = np.ones(n, dtype=bool)
+    n_live = n
+    for it in range(MAX_NEWTON):
+        if n_live < COMPACT_BELOW * rows.size:
+            keep = np.flatnonzero(live)
+            rows, k, is_ideal = rows[keep], k.take(keep), is_ideal[keep]
+            x, cur, lo, hi = x[keep], cur[keep], lo[keep], hi[keep]
+            live = np.ones(keep.size, dtype=bool)
         g, dg, new_i, di_dph, _, _, _, _ = k.evaluate(x, cur)
         above = g > 0
-        lo_r = np.where(above, x, lo[rows])
-        hi_r = np.where(above, hi[rows], x)
+        lo = np.where(above, x, lo)
+        hi = np.where(above, hi, x)
         with np.errstate(divide="ignore", invalid="ignore"):
             step = -g / dg
         newton = x + step
         # Strict: a Newton step of ~0 from a bracket end is converged, not a reason to bisect.
-        bad = ~np.isfinite(newton) | (newton < lo_r) | (newton > hi_r)
-        nxt = np.where(bad, 0.5 * (lo_r + hi_r), newton)
-        ideal_r = ideal[rows]
-        i_ok = ideal_r | (np.abs(new_i - cur) <= I_ATOL + I_RTOL * new_i)
-        small = np.isfinite(step) & (np.abs(step) < PH_TOL)
-        conv = act & i_ok & (small | (hi_r - lo_r < PH_TOL))
-        # Nested mode (after JOINT_STEPS): hold I until the pH has settled for it.
-        nested = iters[rows] >= JOINT_STEPS
-        settled = (np.isfinite(step) & (np.abs(step) < 1e-7)) | (hi_r - lo_r < 1e-7)
-        update_i = ~i_ok & (~nested | settled)
-        # Joint mode: the ionic strength at the next pH, to first order, kept within a
-        # factor 2 of the value at this pH (the pH step can be several units early on).
-        ahead = np.clip(new_i + di_dph * (nxt - x), 0.5 * new_i, 2.0 * new_i)
-        i_next = np.where(nested | ~np.isfinite(ahead), new_i, ahead)
+        bad = ~np.isfinite(newton) | (newton < lo) | (newton > hi)
+        nxt = np.where(bad, 0.5 * (lo + hi), newton)
+        i_ok = is_ideal | (np.abs(new_i - cur) <= I_ATOL + I_RTOL * new_i)
+        small = np.abs(step) < PH_TOL  # False for NaN and ±inf
+        width = hi - lo
+        conv = live & i_ok & (small | (width < PH_TOL))
+        if conv.any():
+            c = np.flatnonzero(conv)
+            r = rows[c]
+            ph[r] = np.where(small[c] & ~bad[c], newton[c], x[c])
+            # A converged stream keeps the ionic strength its pH was solved with, so the
+            # reported residual is that of the pH returned.
+            ionic[r] = cur[c]
+            iters[r] = it + 1
+            done[r] = True
+            live[c] = False
+            n_live -= c.size
+            if n_live == 0:
+                break
+        if it < JOINT_STEPS:
+            # The ionic strength at the next pH, to first order, kept within a factor 2
+            # of the value at this pH (the pH step can be several units early on).
+            update_i = ~i_ok
+            i_next = np.clip(new_i + di_dph * (nxt - x), 0.5 * new_i, 2.0 * new_i)
+            i_next = np.where(np.isfinite(i_next), i_next, new_i)
+        else:
+            # Nested mode: hold I until the pH has settled for it.
+            update_i = ~i_ok & ((np.abs(step) < 1e-7) | (width < 1e-7))
+            i_next = new_i
         # The root moves with γ by about |Δlog γ| ≤ z²·A·|Δ√I| (z² ≤ 9 here, A < 0.61):
         # widen the bracket by a safe multiple of that, not more, so it still shrinks.
         shift = 10.0 * k.a_dh * np.abs(np.sqrt(i_next) - np.sqrt(cur)) + 1e-9
-        margin = np.where(update_i, np.where(nested, shift + 1e-6, shift), 0.0)
-        lo_r = np.maximum(PH_MIN, np.minimum(lo_r, nxt) - margin)
-        hi_r = np.minimum(PH_MAX, np.maximum(hi_r, nxt) + margin)
-        lo[rows] = np.where(act, lo_r, lo[rows])
-        hi[rows] = np.where(act, hi_r, hi[rows])
-        ph[rows] = np.where(act, np.where(conv, np.where(small & ~bad, newton, x), nxt), ph[rows])
-        # A converged stream keeps the ionic strength its pH was solved with, so the
-        # reported residual is that of the pH returned.
-        ionic[rows] = np.where(act & ~conv & update_i, i_next, ionic[rows])
-        iters[rows] += act
-        done[rows[conv]] = True
-        if done.all():
-            break
+        if it >= JOINT_STEPS:
+            shift += 1e-6
+        margin = np.where(update_i, shift, 0.0)
+        lo = np.maximum(PH_MIN, np.minimum(lo, nxt) - margin)
+        hi = np.minimum(PH_MAX, np.maximum(hi, nxt) + margin)
+        x = nxt
+        cur = np.where(update_i, i_next, cur)
+    else:
+        ph[rows[live]] = x[live]
+        ionic[rows[live]] = cur[live]
     _, _, ionic_actual, _, pos, neg, lh, loh = full.evaluate(ph, ionic, slope=False)
     f, scale = pos - neg, pos + neg
     lg = _log_gamma_species(p, code, ionic)
