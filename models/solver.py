@@ -53,6 +53,11 @@ I_RTOL, I_ATOL = 1e-11, 1e-14
 MAX_NEWTON, MAX_OUTER = 200, 60
 #: Joint pH/ionic-strength Newton steps before a stream falls back to nested iteration.
 JOINT_STEPS = 16
+#: The solver evaluates activity coefficients at min(I, this) [mol/kg]: far beyond every
+#: model (a result above HARD_LIMIT_MOL_KG is refused anyway), low enough that no
+#: species weight overflows when an early iterate of I is absurd (an overshoot to pH 12
+#: with CO2 held by its partial pressure implies thousands of mol/kg of carbonate).
+GAMMA_IONIC_MAX = 10.0 * HARD_LIMIT_MOL_KG
 
 OK, BELOW_RANGE, ABOVE_RANGE, NOT_CONVERGED, IONIC_STRENGTH = 0, 1, 2, 3, 4
 #: Stable reason code per status.
@@ -377,6 +382,7 @@ class _LoopKernel:
     def _weights(self, ph: NDArray, ionic: NDArray):
         """(w, lh, loh): w yields each species j ≥ 1's weights relative to species 0, (K, N)."""
         u = LN10 * ph
+        ionic = np.minimum(ionic, GAMMA_IONIC_MAX)
         if self.code == IDEAL or self.code == DAVIES:
             lh, loh = self.log_gamma_ions(ionic)
             return self._weights_davies(u, LN10 * lh), lh, loh
@@ -396,15 +402,14 @@ class _LoopKernel:
 
     def _weights_davies(self, u: NDArray, gl: NDArray):
         # Davies: log γ_j − log γ_0 = g (z_j² − t²) = g (j² − 2 t j), the same g for all:
-        # a per-stream factor 10^(j pH − j² g) and, where t ≠ 0, (10^(2 t g))^j per slot.
-        tg = [np.exp(gl * self.two_top[r]) for r in self.top_rows]
-        pw = list(tg)
+        # a per-stream factor 10^(j pH − j² g), times 10^(2 t j g) on slots where t ≠ 0
+        # (one exponent there: the two factors alone can be 0 and inf).
         for j in range(1, self.n_sp):
-            w = self.kc[j - 1] * np.exp(j * u - (j * j) * gl)
-            for i, r in enumerate(self.top_rows):
-                if j > 1:
-                    pw[i] = pw[i] * tg[i]
-                w[r] *= pw[i]
+            e = j * u - (j * j) * gl
+            kc = self.kc[j - 1]
+            w = kc * np.exp(e)
+            for r in self.top_rows:
+                w[r] = kc[r] * np.exp(e + (j * gl) * self.two_top[r])
             yield w
 
     def evaluate(self, ph: NDArray, ionic: NDArray, *, slope: bool = True):
@@ -636,7 +641,9 @@ def _solve_slice(
 
 
 def _log_gamma_species(p: BalanceProblem, code: int | None, ionic: NDArray) -> NDArray:
-    """log10 γ of the system species (N, K, P), as ``BalanceKernel.log_gammas`` gives it."""
+    """log10 γ of the system species (N, K, P), as ``BalanceKernel.log_gammas`` gives it
+    (at most at GAMMA_IONIC_MAX, as in the loop)."""
+    ionic = np.minimum(ionic, GAMMA_IONIC_MAX)
     if code == IDEAL:
         return np.zeros(p.charge.shape)
     if code == DAVIES:

@@ -119,3 +119,21 @@ def test_loop_kernel_rounds_a_stream_alike_whatever_the_batch_size(model: str) -
         one = _LoopKernel(p.take(np.array([i])), code).evaluate(ph[i:i + 1], ionic[i:i + 1])
         for x, y in zip(batch, one):
             assert x[i] == y[0]
+
+
+def test_an_absurd_early_ionic_strength_does_not_poison_the_iteration() -> None:
+    # The first Newton step of this stream lands near pH 12.3, where CO2 held by its
+    # partial pressure implies ~6 500 mol/kg of carbonate. With activity coefficients at
+    # that ionic strength, weights relative to NH4+ overflowed to inf·0 = NaN and the
+    # stream never recovered; the solver now evaluates γ at most at GAMMA_IONIC_MAX.
+    from models.equilibrium import solve
+
+    amounts = {"Na+": 2.9978, "Cl-": 0.3079, "Ca2+": 0.8456, "borate": 0.7044, "formate": 0.409,
+               "phosphate": 0.0439, "silicate": 0.0419, "sulfide": 0.2289, "carbonate": 20.8986,
+               "propionate": 0.4385, "fluoride": 0.2849, "nitrite": 0.7864, "acetate": 0.1157,
+               "ammonia": 1.6974}
+    spec = StreamSpec(tuple(Entry(k, v, "mmol/L") for k, v in amounts.items()),
+                      temperature_c=65.51, activity_model="davies", co2_partial_pressure_atm=0.0008901)
+    res = solve(spec)
+    assert res.ph == pytest.approx(8.4902314252, abs=1e-9)
+
