@@ -560,11 +560,12 @@ def _solve_slice(
     lo, hi = np.full(n, PH_MIN), np.full(n, PH_MAX)
     live = np.ones(n, dtype=bool)
     n_live = n
+    last = np.full(n, np.inf)
     for it in range(MAX_NEWTON):
         if n_live < COMPACT_BELOW * rows.size:
             keep = np.flatnonzero(live)
             rows, k, is_ideal = rows[keep], k.take(keep), is_ideal[keep]
-            x, cur, lo, hi = x[keep], cur[keep], lo[keep], hi[keep]
+            x, cur, lo, hi, last = x[keep], cur[keep], lo[keep], hi[keep], last[keep]
             live = np.ones(keep.size, dtype=bool)
         g, dg, new_i, di_dph, _, _, _, _ = k.evaluate(x, cur)
         above = g > 0
@@ -575,7 +576,12 @@ def _solve_slice(
         newton = x + step
         # Strict: a Newton step of ~0 from a bracket end is converged, not a reason to bisect.
         bad = ~np.isfinite(newton) | (newton < lo) | (newton > hi)
+        # Also bisect a Newton step that turns back by more than half the step before: on
+        # an S-shaped G, Newton can cycle between two points inside a bracket that the
+        # ionic-strength updates keep from shrinking. Near the root steps shrink fast.
+        bad |= (step * last < 0) & (np.abs(step) > np.maximum(0.5 * np.abs(last), 1e-6))
         nxt = np.where(bad, 0.5 * (lo + hi), newton)
+        last = nxt - x
         i_ok = is_ideal | (np.abs(new_i - cur) <= I_ATOL + I_RTOL * new_i)
         small = np.abs(step) < PH_TOL  # False for NaN and ±inf
         width = hi - lo

@@ -137,3 +137,32 @@ def test_an_absurd_early_ionic_strength_does_not_poison_the_iteration() -> None:
     res = solve(spec)
     assert res.ph == pytest.approx(8.4902314252, abs=1e-9)
 
+
+CYCLING = {
+    # Ideal: Newton on the S-shaped G alternated between pH ≈ 0.2 and ≈ 6.8 inside a
+    # bracket shrinking by ~0.002 per step, 200 steps, not_converged (before and at 043da86).
+    "propionate-80C-ideal": StreamSpec(
+        tuple(Entry(k, v, "mmol/L") for k, v in {
+            "Na+": 0.0013553, "Cl-": 0.00022455, "Ca2+": 0.00020129, "silicate": 0.00034972,
+            "ammonia": 1.0546e-05, "formate": 5.7985e-05, "propionate": 0.021053,
+            "sulfate": 0.00013955}.items()),
+        temperature_c=80.21, activity_model="ideal"),
+    # Ext. Debye–Hückel: a cycle between pH 2.95 and 6.15 that the ionic-strength updates
+    # kept from shrinking (converged at 043da86 only by the path it happened to take).
+    "silicate-brine-edh": StreamSpec(
+        tuple(Entry(k, v, "mmol/L") for k, v in {
+            "Na+": 13.602, "Cl-": 18.504, "Ca2+": 105.09, "acetate": 234.85, "nitrite": 1.6695,
+            "phosphate": 39.447, "silicate": 773.56, "carbonate": 28.309, "propionate": 25.728,
+            "sulfide": 5.0308, "sulfate": 7.6678}.items()),
+        temperature_c=24.02, activity_model="extended_debye_huckel"),
+}
+
+
+@pytest.mark.parametrize("name", CYCLING)
+def test_a_newton_cycle_inside_the_bracket_is_broken_by_bisection(name: str) -> None:
+    from models.equilibrium import solve
+
+    res = solve(CYCLING[name])
+    terms = [abs(s.charge * s.mol_l) for s in res.species]
+    assert abs(res.charge_balance_residual_mol_l) < 1e-12 * max(terms)
+    assert res.iterations <= 25
