@@ -312,23 +312,30 @@ class _LoopKernel:
     def __init__(self, p: BalanceProblem, code: int | None) -> None:
         self.p, self.code = p, code
         self.n_sp = p.charge.shape[2]
+        # (P-1, K, N): 10^-cum_pk, exactly 0 for padded species (cum_pk = +inf; exp(-inf)
+        # is numpy's slow path, so pads are masked instead).
         cum = np.ascontiguousarray(p.cum_pk[..., 1:].transpose(2, 1, 0))
-        with np.errstate(over="ignore"):
-            self.kc = np.exp(-LN10 * cum)  # (P-1, K, N): 10^-cum_pk, exactly 0 for pads
+        pad = np.isinf(cum)
+        self.kc = np.exp(np.where(pad, 0.0, -LN10 * cum))
+        self.kc[pad] = 0.0
         self.top = np.ascontiguousarray(p.charge[..., 0].T)
         self.two_top = 2.0 * self.top
         self.top_rows = [k for k in range(self.top.shape[0]) if self.top[k].any()]
-        zpos = np.maximum(p.charge, 0.0)
-        self.top_pos = np.ascontiguousarray(zpos[..., 0].T)
+        self.top_pos = np.maximum(self.top, 0.0)
         # Positive species beyond species 0 (a custom system with top charge ≥ +2).
+        rest = p.charge[..., 1:]
         self.zpos_rest = (
-            np.ascontiguousarray(zpos[..., 1:].transpose(2, 1, 0)) if np.any(zpos[..., 1:]) else None
+            np.ascontiguousarray(np.maximum(rest, 0.0).transpose(2, 1, 0)) if (rest > 0).any() else None
         )
         self.pos_rows = [k for k in range(self.top.shape[0]) if self.top_pos[k].any()]
         self.any_open = bool(p.is_open.any())
         self.is_open = np.ascontiguousarray(p.is_open.T)
-        self.total = np.where(self.is_open, 0.0, p.total.T)
-        self.open_neutral = np.ascontiguousarray(p.open_neutral.T)
+        if self.any_open:
+            self.total = np.where(self.is_open, 0.0, np.ascontiguousarray(p.total.T))
+            self.open_neutral = np.ascontiguousarray(p.open_neutral.T)
+        else:
+            self.total = np.ascontiguousarray(p.total.T)
+            self.open_neutral = None
         self.sum_tt = _sum_slots(self.total * self.top)
         self.sum_tt2 = _sum_slots(self.total * self.top * self.top)
         self.strong_pos = np.maximum(p.strong_charge, 0.0)
@@ -515,10 +522,10 @@ def solve_balance(
         return _solve_slice(p, ph_guess, ionic_guess)
     parts = []
     for start in range(0, n, SLICE_STREAMS):
-        idx = np.arange(start, min(n, start + SLICE_STREAMS))
+        idx = slice(start, min(n, start + SLICE_STREAMS))
         parts.append(
             _solve_slice(
-                p.take(idx),
+                BalanceProblem(**{f: getattr(p, f)[idx] for f in BalanceProblem.__dataclass_fields__}),
                 None if ph_guess is None else ph_guess[idx],
                 None if ionic_guess is None else ionic_guess[idx],
             )
