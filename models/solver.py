@@ -506,8 +506,9 @@ class _LoopKernel:
 
 #: Streams solved together at most: larger batches are solved in slices of this size,
 #: which keeps the working arrays in cache (the time per stream stays flat) and changes no
-#: result (every stream's iteration is its own).
-SLICE_STREAMS = 16_384
+#: result (every stream's iteration is its own). 8 192 streams: a (K, N) array of six
+#: slots is 384 KiB; 5 % faster than 16 384 on the benchmark (both models).
+SLICE_STREAMS = 8_192
 #: The working set is compacted when fewer than this fraction of it is still iterating.
 COMPACT_BELOW = 0.6
 
