@@ -521,19 +521,20 @@ def solve_balance(
     n = p.n_streams
     if n <= SLICE_STREAMS:
         return _solve_slice(p, ph_guess, ionic_guess)
-    parts = []
+    out: dict[str, NDArray] = {}
     for start in range(0, n, SLICE_STREAMS):
         idx = slice(start, min(n, start + SLICE_STREAMS))
-        parts.append(
-            _solve_slice(
-                BalanceProblem(**{f: getattr(p, f)[idx] for f in BalanceProblem.__dataclass_fields__}),
-                None if ph_guess is None else ph_guess[idx],
-                None if ionic_guess is None else ionic_guess[idx],
-            )
+        part = _solve_slice(
+            BalanceProblem(**{f: getattr(p, f)[idx] for f in BalanceProblem.__dataclass_fields__}),
+            None if ph_guess is None else ph_guess[idx],
+            None if ionic_guess is None else ionic_guess[idx],
         )
-    return BalanceState(
-        **{f: np.concatenate([getattr(s, f) for s in parts]) for f in BalanceState.__dataclass_fields__}
-    )
+        for f in BalanceState.__dataclass_fields__:
+            a = getattr(part, f)
+            if f not in out:
+                out[f] = np.empty((n,) + a.shape[1:], dtype=a.dtype)
+            out[f][idx] = a
+    return BalanceState(**out)
 
 
 def _solve_slice(
