@@ -1,10 +1,14 @@
 """Core solver benchmark: streams solved per second, and the ratio to a scalar loop.
 
-    python tests/benchmarks/bench_core.py [--streams 100000] [--quick]
+    python tests/benchmarks/bench_core.py [--streams 100000] [--quick] [--baseline REV]
 
 Prints a table. Figures are wall-clock on this machine: compare the ratios (measured
 in the same run), not the absolute rates, between machines. One core: set
 OMP_NUM_THREADS=OPENBLAS_NUM_THREADS=1 (done below before numpy loads).
+
+``--baseline REV`` also loads models/solver.py as of git revision REV and times both
+solvers alternately on the same batches (``--rounds`` each): the speed ratio is
+measured in one process, so load from other jobs on a shared machine affects both.
 """
 
 from __future__ import annotations
@@ -86,11 +90,44 @@ def scalar_brentq_loop(batch, rows: np.ndarray) -> np.ndarray:
     return out
 
 
+def baseline_solver(rev: str):
+    """models/solver.py as of git revision ``rev``, loaded as a separate module."""
+    import importlib.util
+    import subprocess
+    import sys
+    import tempfile
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[2]
+    src = subprocess.check_output(["git", "-C", str(root), "show", f"{rev}:models/solver.py"], text=True)
+    path = Path(tempfile.mkdtemp(prefix="bench-core-")) / "solver_baseline.py"
+    path.write_text(src)
+    spec = importlib.util.spec_from_file_location("solver_baseline", path)
+    mod = importlib.util.module_from_spec(spec)
+    sys.modules["solver_baseline"] = mod
+    spec.loader.exec_module(mod)
+    return mod
+
+
+def alternate(fn_old, fn_new, rounds: int) -> tuple[list[float], list[float]]:
+    """Wall times [s] of ``rounds`` calls each, old and new interleaved (ABBA order)."""
+    t_old, t_new = [], []
+    for r in range(rounds):
+        pair = ((fn_old, t_old), (fn_new, t_new))
+        for fn, out in pair if r % 2 == 0 else pair[::-1]:
+            t0 = time.perf_counter()
+            fn()
+            out.append(time.perf_counter() - t0)
+    return t_old, t_new
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__)
     ap.add_argument("--streams", type=int, default=100_000)
     ap.add_argument("--loop-streams", type=int, default=1000)
     ap.add_argument("--quick", action="store_true", help="skip the scaling sweeps")
+    ap.add_argument("--baseline", metavar="REV", help="also time models/solver.py of this git revision")
+    ap.add_argument("--rounds", type=int, default=7, help="timed calls per solver with --baseline")
     args = ap.parse_args()
     rng = np.random.default_rng(20261202)
     n = args.streams
@@ -115,6 +152,25 @@ def main() -> None:
     rows.append(("core batch, six systems, ext. Debye–Hückel, 60 °C", f"{n / t60:,.0f} streams/s", "absolute", "≥ 100 000"))
     rows.append(("  mean iterations (25 °C Davies)", f"{st.iterations.mean():.1f}", "info", ""))
 
+    if args.baseline:
+        old = baseline_solver(args.baseline)
+        for label, batch in (("Davies, 25 °C", b25), ("ext. Debye–Hückel, 60 °C", b60)):
+            ref = old.solve_balance(batch.problem)
+            cur = solve_balance(batch.problem)
+            t_old, t_new = alternate(lambda: old.solve_balance(batch.problem),
+                                     lambda: solve_balance(batch.problem), args.rounds)
+            rows.append((f"vs {args.baseline}, {label}: speed ratio (median)",
+                         f"{np.median(t_old) / np.median(t_new):.2f} ×", "ratio", ""))
+            rows.append(("  best of each", f"{min(t_old) / min(t_new):.2f} ×", "ratio", ""))
+            rows.append(("  baseline rate (best)", f"{n / min(t_old):,.0f} streams/s", "absolute", ""))
+            rows.append(("  mean iterations, baseline → now",
+                         f"{ref.iterations.mean():.2f} → {cur.iterations.mean():.2f}", "info", ""))
+            same = ref.status == cur.status
+            both = same & (cur.status == 0)
+            rows.append(("  largest |pH difference|, same status",
+                         f"{np.max(np.abs(ref.ph - cur.ph)[both], initial=0.0):.1e} ({same.mean():.2%})",
+                         "check", "< 1e-9"))
+
     if not args.quick:
         for size in (1, 10, 100, 1_000, 10_000, 100_000, 1_000_000):
             b = problem_from_columns(columns(size, SIX, rng), 25.0, "davies")
@@ -128,7 +184,9 @@ def main() -> None:
             rows.append((f"  {k:>2} systems: time relative to 1", f"{t / base:.2f}", "scaling", "≈ linear"))
 
     width = max(len(r[0]) for r in rows)
-    print(f"cores: {os.cpu_count()}, streams: {n:,}, loop sample: {idx.size}")
+    import models.solver
+
+    print(f"cores: {os.cpu_count()}, streams: {n:,}, loop sample: {idx.size}, solver: {models.solver.__file__}")
     print(f"{'figure'.ljust(width)} | {'measured':>18} | {'kind':8} | target")
     print("-" * (width + 48))
     for name, val, kind, target in rows:
