@@ -588,7 +588,8 @@ def _solve_slice(
         # Also bisect a Newton step that turns back by more than half the step before: on
         # an S-shaped G, Newton can cycle between two points inside a bracket that the
         # ionic-strength updates keep from shrinking. Near the root steps shrink fast.
-        bad |= (step * last < 0) & (np.abs(step) > np.maximum(0.5 * np.abs(last), 1e-6))
+        with np.errstate(invalid="ignore"):  # 0 × inf on the first step is no turn
+            bad |= (step * last < 0) & (np.abs(step) > np.maximum(0.5 * np.abs(last), 1e-6))
         nxt = np.where(bad, 0.5 * (lo + hi), newton)
         last = nxt - x
         i_ok = is_ideal | (np.abs(new_i - cur) <= I_ATOL + I_RTOL * new_i)
