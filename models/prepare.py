@@ -25,7 +25,7 @@ from models.activity import HARD_LIMIT_MOL_KG, model_code
 from models.errors import InputError
 from models.fractions import cumulative_pk
 from models.solver import BalanceProblem
-from models.stream import ACTIVITY_MODELS, BALANCE_IONS, StreamSpec
+from models.stream import ACTIVITY_MODELS, BALANCE_IONS, CustomSystem, StreamSpec
 from models.thermo import SystemData, ThermoDatabase
 
 __all__ = ["ALKALINITY", "ParsedStream", "parse_stream", "assemble", "Assembled", "water_terms"]
@@ -78,6 +78,10 @@ _ENTRY_PLANS: dict[int, tuple[ThermoDatabase, dict]] = {}
 #: Per database: temperature -> {built-in system: its extrapolation warnings} (usually empty).
 _EXTRAPOLATED: dict[int, tuple[ThermoDatabase, dict]] = {}
 _EXTRAPOLATED_MAX = 4096
+#: Per database: a custom system's definition -> its SystemData (immutable, shared by
+#: the streams that declare it identically; only successful builds are kept).
+_CUSTOMS: dict[int, tuple[ThermoDatabase, dict]] = {}
+_CUSTOMS_MAX = 1024
 
 
 def _per_db(store: dict[int, tuple[ThermoDatabase, dict]], db: ThermoDatabase) -> dict:
@@ -113,6 +117,36 @@ def _entry_plan(name: str, unit: str, customs: dict[str, SystemData], db: Thermo
     return ion, system, factor, units.is_per_kg(unit)
 
 
+def _custom_key(cs: CustomSystem) -> tuple | None:
+    """The exact definition of a custom system as a cache key, or None (not cacheable).
+
+    Floats are keyed by their bits (float.hex: -0.0 and 0.0 stay apart), the charge only
+    as a plain int (True == 1 must still be refused)."""
+    if type(cs.name) is not str or type(cs.top_charge) is not int:
+        return None
+    try:
+        pka = tuple(map(float.hex, cs.pka))
+        dh = None if cs.delta_h_kj_mol is None else tuple(map(float.hex, cs.delta_h_kj_mol))
+    except TypeError:  # not floats: built (and checked) afresh each time
+        return None
+    return (cs.name, cs.top_charge, pka, dh)
+
+
+def _custom_system(cs: CustomSystem, db: ThermoDatabase) -> SystemData:
+    """``db.custom_system`` for ``cs``, cached per database by the exact definition."""
+    key = _custom_key(cs)
+    if key is None:
+        return db.custom_system(cs.name, cs.pka, cs.top_charge, cs.delta_h_kj_mol)
+    cache = _per_db(_CUSTOMS, db)
+    got = cache.get(key)
+    if got is None:
+        got = db.custom_system(cs.name, cs.pka, cs.top_charge, cs.delta_h_kj_mol)
+        if len(cache) >= _CUSTOMS_MAX:  # bounded: every request may declare new ones
+            cache.clear()
+        cache[key] = got
+    return got
+
+
 def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
     """Check and convert one stream; raise InputError naming the field at fault.
 
@@ -136,7 +170,7 @@ def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
         if cs.name in customs:
             raise InputError(f"custom system {cs.name!r} is declared twice", where + "/name")
         try:
-            customs[cs.name] = db.custom_system(cs.name, cs.pka, cs.top_charge, cs.delta_h_kj_mol)
+            customs[cs.name] = _custom_system(cs, db)
         except InputError as exc:
             raise InputError(exc.message, where + "/pka") from None
     if not spec.composition:
