@@ -26,6 +26,9 @@ from models.results import (
     SpeciesAmount,
     StreamFailure,
     SystemSpeciation,
+    new_result,
+    new_species,
+    new_system,
 )
 from models.solver import (
     NOT_CONVERGED,
@@ -40,7 +43,7 @@ from models.solver import (
     solve_balance,
     species_state,
 )
-from models.stream import StreamSpec
+from models.stream import ACTIVITY_MODELS, StreamSpec
 from models.thermo import ThermoDatabase, load_database
 
 __all__ = ["solve", "solve_many", "Solved", "solve_arrays", "failure_message"]
@@ -210,17 +213,25 @@ def solve(spec: StreamSpec, db: ThermoDatabase | None = None) -> EquilibriumResu
 
 @dataclass(frozen=True)
 class _Tables:
-    """Whole-batch arrays turned into Python lists once (cheap per-stream access)."""
+    """Whole-batch arrays turned into Python lists once (cheap per-stream access).
+
+    Activities are products of the same floats in the same order as a per-species
+    c·γ/ρ (or c·γ·(1/ρ)) in Python, done elementwise in numpy: the same IEEE results."""
 
     m: list            # (N, K, P) system species [mol/L]
     g: list            # (N, K, P) activity coefficients
+    a: list            # (N, K, P) activities
     frac: list         # (N, K, P) fractions
     tot: list          # (N, K) totals [mol/L]
-    h: list            # (N, 4) m(H+), γ(H+), m(OH-), γ(OH-) [mol/L]
+    h: list            # (N, 6) m(H+), γ(H+), m(OH-), γ(OH-) [mol/L], a(H+), a(OH-)
     strong: list       # (N, S) strong ions [mol/L]
     strong_g: list     # (N, S)
+    strong_a: list     # (N, S)
     scalars: list      # (N, 8) pH, I, β, residual, T, ρ, iterations, status
     is_open: list      # (N, K)
+    added: list        # (N,) calibration: strong ion added [mol/kg]
+    carb: list         # (N,) calibration: carbonate from alkalinity [mol/kg] or NaN
+    code: list         # (N,) activity model code
     strong_charges: tuple[int, ...]
 
     @staticmethod
@@ -231,16 +242,27 @@ class _Tables:
         with np.errstate(invalid="ignore", divide="ignore"):
             frac = np.where(tot[..., None] > 0, m / tot[..., None], 0.0)
         r = rho[:, None, None]
-        h = np.stack([m_h * rho, 10**st.log_gamma_h, m_oh * rho, 10**st.log_gamma_oh], axis=1)
+        with np.errstate(all="ignore"):  # failed rows may hold NaN/inf: never read
+            m_l = m * r
+            g = 10.0**st.log_gamma_species
+            act = m_l * g * (1.0 / rho)[:, None, None]
+            ch, gh, coh, goh = m_h * rho, 10**st.log_gamma_h, m_oh * rho, 10**st.log_gamma_oh
+            h = np.stack([ch, gh, coh, goh, ch * gh / rho, coh * goh / rho], axis=1)
+            strong = sv.assembled.strong_molal * rho[:, None]
+            strong_g = 10.0**ex.strong_log_gamma
+            strong_a = strong * strong_g / rho[:, None]
         return _Tables(
-            (m * r).tolist(), (10.0**st.log_gamma_species).tolist(), frac.tolist(),
+            m_l.tolist(), g.tolist(), act.tolist(), frac.tolist(),
             (tot * rho[:, None]).tolist(), h.tolist(),
-            (sv.assembled.strong_molal * rho[:, None]).tolist(), (10.0**ex.strong_log_gamma).tolist(),
+            strong.tolist(), strong_g.tolist(), strong_a.tolist(),
             np.stack(
                 [st.ph, st.ionic_strength * rho, ex.beta_mol_kg * rho * 1e3, st.residual * rho,
                  sv.assembled.temperature_c, rho, st.iterations, st.status], axis=1,
             ).tolist(),
             p.is_open.tolist(),
+            sv.added_mol_kg.tolist(),
+            sv.carbonate_from_alkalinity.tolist(),
+            p.activity_code.tolist(),
             tuple(load_database().strong_ions[s].charge for s in sv.assembled.strong_names),
         )
 
@@ -260,29 +282,20 @@ def _result(
     if status != OK:
         return StreamFailure("solve", STATUS_MESSAGES[status], failure_message(status))
     asm = sv.assembled
-    p = sv.problem
-    mh, gh, moh, goh = tb.h[j]
-    species: list[SpeciesAmount] = [
-        SpeciesAmount("H+", 1, mh, mh * gh / rho, gh),
-        SpeciesAmount("OH-", -1, moh, moh * goh / rho, goh),
-    ]
-    strong_row, strong_g = tb.strong[j], tb.strong_g[j]
-    for name, z, c, g in zip(asm.strong_names, tb.strong_charges, strong_row, strong_g):
+    mh, gh, moh, goh, ah, aoh = tb.h[j]
+    species: list[SpeciesAmount] = [new_species("H+", 1, mh, ah, gh), new_species("OH-", -1, moh, aoh, goh)]
+    for name, z, c, a, g in zip(asm.strong_names, tb.strong_charges, tb.strong[j], tb.strong_a[j], tb.strong_g[j]):
         if c > 0.0:
-            species.append(SpeciesAmount(name, z, c, c * g / rho, g))
+            species.append(new_species(name, z, c, a, g))
     systems: list[SystemSpeciation] = []
-    m_row, g_row, f_row, t_row, open_row = tb.m[j], tb.g[j], tb.frac[j], tb.tot[j], tb.is_open[j]
-    inv_rho = 1.0 / rho
+    m_row, g_row, a_row, f_row, t_row, open_row = tb.m[j], tb.g[j], tb.a[j], tb.frac[j], tb.tot[j], tb.is_open[j]
     for k, sd in enumerate(asm.slots[j]):
-        mk, gk = m_row[k], g_row[k]
         total = t_row[k]
         fr = dict(zip(sd.species, f_row[k])) if total > 0 else {sp: float(q == 0) for q, sp in enumerate(sd.species)}
-        systems.append(SystemSpeciation(sd.name, total, fr, open_row[k]))
-        species.extend(
-            SpeciesAmount(sp, z, c, c * g * inv_rho, g) for sp, z, c, g in zip(sd.species, sd.charges, mk, gk)
-        )
+        systems.append(new_system(sd.name, total, fr, open_row[k]))
+        species += map(new_species, sd.species, sd.charges, m_row[k], a_row[k], g_row[k])
     ionic = ionic_l / rho
-    model = _model_name(int(p.activity_code[j]))
+    model = ACTIVITY_MODELS[tb.code[j]]
     limit = VALIDITY_LIMIT_MOL_KG[model]
     if ionic > limit:
         parsed_warn.append(
@@ -290,38 +303,20 @@ def _result(
             f"of the {model} activity model: treat the pH as approximate"
         )
     calib = None
-    if sv.added_mol_kg[j] or not np.isnan(sv.carbonate_from_alkalinity[j]):
-        cfa = sv.carbonate_from_alkalinity[j]
+    added, cfa = tb.added[j], tb.carb[j]
+    if added or cfa == cfa:  # calibrated: something added, or a carbonate total (not NaN)
         calib = Calibration(
             _balance_ion(sv, j),
-            float(sv.added_mol_kg[j]) * rho,
-            None if np.isnan(cfa) else float(cfa) * rho,
+            added * rho,
+            None if cfa != cfa else cfa * rho,
         )
-    return EquilibriumResult(
-        ph=ph,
-        temperature_c=temp,
-        activity_model=model,
-        ionic_strength_mol_l=ionic_l,
-        buffer_capacity_mmol_l_per_ph=beta_l,
-        alkalinity=ex.alkalinity[j],
-        species=tuple(species),
-        systems=tuple(systems),
-        charge_balance_residual_mol_l=resid_l,
-        iterations=int(iters),
-        database_version=db.version,
-        calcite_saturation_index=ex.calcite_si[j],
-        langelier_index=ex.langelier[j],
-        conductivity_estimate_us_cm=ex.conductivity_us_cm[j],
-        calibration=calib,
-        warnings=tuple(parsed_warn),
+    return new_result(
+        ph, temp, model, ionic_l, beta_l, ex.alkalinity[j], tuple(species), tuple(systems),
+        resid_l, int(iters), db.version, ex.calcite_si[j], ex.langelier[j],
+        ex.conductivity_us_cm[j], calib, tuple(parsed_warn),
     )
 
 
 def _balance_ion(sv: Solved, j: int) -> str | None:
     return sv.balance_on[j]
 
-
-def _model_name(code: int) -> str:
-    from models.stream import ACTIVITY_MODELS
-
-    return ACTIVITY_MODELS[code]
