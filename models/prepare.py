@@ -333,6 +333,7 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
     rho = np.array([p.density_kg_l for p in parsed], dtype=float)
     t_unique, t_index = np.unique(temp, return_inverse=True)
     t_index = t_index.reshape(-1)
+    t_key = t_unique.tobytes()
     strong_names = tuple(db.strong_ions)
     charges = np.array([db.strong_ions[s].charge for s in strong_names], dtype=float)
     strong_m = np.zeros((n, len(strong_names)))
@@ -385,13 +386,13 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
             lam0[ii, k, :ns] = _lambda0(s, db)
             cum_s = pk_at.get(id(s))
             if cum_s is None:
-                cum_s = pk_at[id(s)] = cumulative_pk(np.atleast_2d(s.pka(t_unique)))
+                cum_s = pk_at[id(s)] = _cum_pk_at(s, t_unique, t_key)
             cum[ii, k, :ns] = cum_s[t_index[ii]]
     if is_open.any():
         rows, slots_ = np.nonzero(is_open)
         pco2 = np.array([parsed[i].co2_partial_pressure_atm for i in rows], dtype=float)
         open_neutral[rows, slots_] = 10.0 ** db.log_kh_co2(temp[rows]) * pco2
-    water_u = water_terms(t_unique, db)
+    water_u = _water_terms_at(t_unique, t_key, db)
     codes = {m: model_code(m) for m in {p.activity_model for p in parsed}}
     problem = BalanceProblem(
         strong_charge=strong_m @ charges,
@@ -406,6 +407,44 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
         ion_size=size,
     )
     return Assembled(problem, temp, rho, strong_names, strong_m, [p.systems for p in parsed], lam0)
+
+
+#: (id(system), the batch's distinct temperatures as bytes) -> (system, cumulative pK
+#: array), and (id(db), temperatures) -> (db, water terms): the same computation on the
+#: same input array, done once. Arrays are read-only (callers index copies out of them);
+#: the object kept with each entry guards against a reused id.
+_CUM_PK: dict[tuple[int, bytes], tuple[SystemData, NDArray]] = {}
+_WATER: dict[tuple[int, bytes], tuple[ThermoDatabase, dict[str, NDArray]]] = {}
+_T_CACHE_MAX = 4096
+
+
+def _cum_pk_at(s: SystemData, t_unique: NDArray, t_key: bytes) -> NDArray:
+    """``cumulative_pk`` of ``s`` at the distinct temperatures ``t_unique`` [°C] (cached)."""
+    key = (id(s), t_key)
+    got = _CUM_PK.get(key)
+    if got is not None and got[0] is s:
+        return got[1]
+    cum = cumulative_pk(np.atleast_2d(s.pka(t_unique)))
+    cum.setflags(write=False)
+    if len(_CUM_PK) >= _T_CACHE_MAX:
+        _CUM_PK.clear()
+    _CUM_PK[key] = (s, cum)
+    return cum
+
+
+def _water_terms_at(t_unique: NDArray, t_key: bytes, db: ThermoDatabase) -> dict[str, NDArray]:
+    """``water_terms`` at the distinct temperatures ``t_unique`` [°C] (cached, read-only)."""
+    key = (id(db), t_key)
+    got = _WATER.get(key)
+    if got is not None and got[0] is db:
+        return got[1]
+    terms = water_terms(t_unique, db)
+    for v in terms.values():
+        v.setflags(write=False)
+    if len(_WATER) >= _T_CACHE_MAX:
+        _WATER.clear()
+    _WATER[key] = (db, terms)
+    return terms
 
 
 def water_terms(temperature_c: NDArray, db: ThermoDatabase) -> dict[str, NDArray]:
