@@ -218,10 +218,9 @@ class _Tables:
     Activities are products of the same floats in the same order as a per-species
     c·γ/ρ (or c·γ·(1/ρ)) in Python, done elementwise in numpy: the same IEEE results."""
 
-    m: list            # (N, K, P) system species [mol/L]
-    g: list            # (N, K, P) activity coefficients
-    a: list            # (N, K, P) activities
-    frac: list         # (N, K, P) fractions
+    sys_rows: list     # per stream: (m [mol/L], γ, activity, fraction) of its system
+                       # species, flat in slot order (padding left out)
+    layout: list       # per stream: _Layout of its slots
     tot: list          # (N, K) totals [mol/L]
     h: list            # (N, 6) m(H+), γ(H+), m(OH-), γ(OH-) [mol/L], a(H+), a(OH-)
     strong: list       # (N, S) strong ions [mol/L]
@@ -251,8 +250,10 @@ class _Tables:
             strong = sv.assembled.strong_molal * rho[:, None]
             strong_g = 10.0**ex.strong_log_gamma
             strong_a = strong * strong_g / rho[:, None]
+            per_species = np.stack([m_l, g, act, frac])
+        sys_rows, layout = _gather_layouts(sv.assembled.slots, per_species)
         return _Tables(
-            m_l.tolist(), g.tolist(), act.tolist(), frac.tolist(),
+            sys_rows, layout,
             (tot * rho[:, None]).tolist(), h.tolist(),
             strong.tolist(), strong_g.tolist(), strong_a.tolist(),
             np.stack(
@@ -265,6 +266,47 @@ class _Tables:
             p.activity_code.tolist(),
             tuple(load_database().strong_ions[s].charge for s in sv.assembled.strong_names),
         )
+
+
+@dataclass(frozen=True)
+class _Layout:
+    """A slot layout's species, flat in slot order, and each slot's span in that order."""
+
+    names: tuple[str, ...]
+    charges: tuple[int, ...]
+    spans: tuple[tuple[int, int], ...]
+
+
+def _gather_layouts(slots: list, per_species: NDArray) -> tuple[list, list]:
+    """Per stream, the (4, N, K, P) quantities of its real system species as four flat
+    lists, gathered once per layout (streams sharing their systems in slot order)."""
+    q, n, k_max, p_max = per_species.shape
+    flat = per_species.reshape(q, n, k_max * p_max)
+    groups: dict[tuple[int, ...], list[int]] = {}
+    for j, sl in enumerate(slots):
+        key = tuple(map(id, sl))
+        rows = groups.get(key)
+        if rows is None:
+            groups[key] = [j]
+        else:
+            rows.append(j)
+    sys_rows: list = [None] * n
+    layout: list = [None] * n
+    for rows in groups.values():
+        sl = slots[rows[0]]
+        idx: list[int] = []
+        spans = []
+        for k, sd in enumerate(sl):
+            spans.append((len(idx), len(idx) + len(sd.species)))
+            idx.extend(range(k * p_max, k * p_max + len(sd.species)))
+        lay = _Layout(
+            tuple(sp for sd in sl for sp in sd.species), tuple(z for sd in sl for z in sd.charges), tuple(spans)
+        )
+        got = flat[:, rows][:, :, idx].transpose(1, 0, 2).tolist()
+        for r, j in enumerate(rows):
+            sys_rows[j] = got[r]
+            layout[j] = lay
+    return sys_rows, layout
 
 
 def _result(
@@ -288,12 +330,13 @@ def _result(
         if c > 0.0:
             species.append(new_species(name, z, c, a, g))
     systems: list[SystemSpeciation] = []
-    m_row, g_row, a_row, f_row, t_row, open_row = tb.m[j], tb.g[j], tb.a[j], tb.frac[j], tb.tot[j], tb.is_open[j]
-    for k, sd in enumerate(asm.slots[j]):
+    m_row, g_row, a_row, f_row = tb.sys_rows[j]
+    t_row, open_row, lay = tb.tot[j], tb.is_open[j], tb.layout[j]
+    for k, (sd, (lo, hi)) in enumerate(zip(asm.slots[j], lay.spans)):
         total = t_row[k]
-        fr = dict(zip(sd.species, f_row[k])) if total > 0 else {sp: float(q == 0) for q, sp in enumerate(sd.species)}
+        fr = dict(zip(sd.species, f_row[lo:hi])) if total > 0 else {sp: float(q == 0) for q, sp in enumerate(sd.species)}
         systems.append(new_system(sd.name, total, fr, open_row[k]))
-        species += map(new_species, sd.species, sd.charges, m_row[k], a_row[k], g_row[k])
+    species += map(new_species, lay.names, lay.charges, m_row, a_row, g_row)
     ionic = ionic_l / rho
     model = ACTIVITY_MODELS[tb.code[j]]
     limit = VALIDITY_LIMIT_MOL_KG[model]
