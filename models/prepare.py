@@ -114,7 +114,7 @@ def _entry_plan(name: str, unit: str, customs: dict[str, SystemData], db: Thermo
             )
     except InputError as exc:
         raise InputError(exc.message, exc.field or where + "/unit") from None
-    return ion, system, factor, units.is_per_kg(unit)
+    return ion, system, float(factor), units.is_per_kg(unit)
 
 
 def _custom_key(cs: CustomSystem) -> tuple | None:
@@ -164,15 +164,16 @@ def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
     rho = _density(t)
     customs: dict[str, SystemData] = {}
     for i, cs in enumerate(spec.custom_systems):
-        where = f"/custom_systems/{i}"
         if cs.name in db.systems or cs.name in db.strong_ions or cs.name == ALKALINITY:
-            raise InputError(f"custom system name {cs.name!r} is already a built-in name", where + "/name")
+            raise InputError(
+                f"custom system name {cs.name!r} is already a built-in name", f"/custom_systems/{i}/name"
+            )
         if cs.name in customs:
-            raise InputError(f"custom system {cs.name!r} is declared twice", where + "/name")
+            raise InputError(f"custom system {cs.name!r} is declared twice", f"/custom_systems/{i}/name")
         try:
             customs[cs.name] = _custom_system(cs, db)
         except InputError as exc:
-            raise InputError(exc.message, where + "/pka") from None
+            raise InputError(exc.message, f"/custom_systems/{i}/pka") from None
     if not spec.composition:
         raise InputError("the composition is empty: give at least one ion or system", "/composition")
     plans = _per_db(_ENTRY_PLANS, db)
@@ -181,17 +182,18 @@ def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
     totals: list[float] = []
     alkalinity: float | None = None
     seen: set[str] = set()
+    isfinite = math.isfinite
     for i, entry in enumerate(spec.composition):
         name = entry.name
         if name in seen:
             raise InputError(f"{name} appears twice in the composition", f"/composition/{i}/name")
         seen.add(name)
         value = float(entry.value)
-        if not (math.isfinite(value) and value >= 0.0):
+        if not (isfinite(value) and value >= 0.0):
             raise InputError(f"{name}: the amount must be a finite number ≥ 0", f"/composition/{i}/value")
         key = (name, entry.unit)
         try:
-            plan = plans.get(key) if name not in customs else None
+            plan = plans.get(key) if not customs or name not in customs else None
         except TypeError:  # an unhashable unit: the checks below name the fault
             plan = key = None
         if plan is None:
@@ -199,8 +201,8 @@ def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
             if key is not None and name not in customs:
                 plans[key] = plan
         ion, system, factor, per_kg = plan
-        amount = value * factor
-        molal = float(amount) if per_kg else float(amount) / rho
+        amount = value * factor  # a float: both are (see _entry_plan)
+        molal = amount if per_kg else amount / rho
         if ion is not None:
             strong[name] = molal
         elif system is not None:
@@ -260,8 +262,8 @@ def _finish(
     alkalinity: float | None,
 ) -> ParsedStream:
     warnings: list[str] = []
-    names = [s.name for s in systems]
     pco2 = spec.co2_partial_pressure_atm
+    names = [s.name for s in systems] if alkalinity is not None or pco2 is not None else []
     open_slot: int | None = None
     if spec.balance_on is not None and spec.balance_on not in BALANCE_IONS:
         raise InputError(f"balance_on must be one of {', '.join(BALANCE_IONS)}", "/balance_on")
