@@ -14,6 +14,7 @@ under 1 % below about 0.1 mol/L of dissolved salts.
 from __future__ import annotations
 
 import math
+import operator
 from dataclasses import dataclass, field
 from functools import lru_cache
 
@@ -375,21 +376,17 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
         if sk:
             vals = np.array([list(parsed[i].strong.values()) for i in rows], dtype=float)
             strong_m[np.ix_(rows, [col[s] for s in sk])] = vals
-    # Each system's constants per distinct temperature, evaluated once.
-    pk_at: dict[int, NDArray] = {}
-    for systems, rows in layouts.values():
+    # Each layout's constant blocks (and its pK at the batch's temperatures), made once.
+    for lk, (systems, rows) in layouts.items():
         ii = np.array(rows)
         kk = len(systems)
         total[ii, :kk] = np.array([parsed[i].totals for i in rows], dtype=float).reshape(len(rows), kk)
-        for k, s in enumerate(systems):
-            ns = s.n_steps + 1
-            charge[ii, k, :ns] = s.charges
-            size[ii, k, :ns] = s.ion_size_angstrom
-            lam0[ii, k, :ns] = _lambda0(s, db)
-            cum_s = pk_at.get(id(s))
-            if cum_s is None:
-                cum_s = pk_at[id(s)] = _cum_pk_at(s, t_unique, t_key)
-            cum[ii, k, :ns] = cum_s[t_index[ii]]
+        blk = _layout_block(lk, systems, db)
+        pw = blk.width
+        charge[ii, :kk, :pw] = blk.charge
+        size[ii, :kk, :pw] = blk.size
+        lam0[ii, :kk, :pw] = blk.lambda0
+        cum[ii, :kk, :pw] = blk.cum_pk_at(t_unique, t_key)[t_index[ii]]
     if is_open.any():
         rows, slots_ = np.nonzero(is_open)
         pco2 = np.array([parsed[i].co2_partial_pressure_atm for i in rows], dtype=float)
@@ -409,6 +406,60 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
         ion_size=size,
     )
     return Assembled(problem, temp, rho, strong_names, strong_m, [p.systems for p in parsed], lam0)
+
+
+@dataclass
+class _LayoutBlock:
+    """A slot layout's (K, P) blocks: charges, ion sizes, λ° (0 where none or padded),
+    and its cumulative pK per set of distinct temperatures (+inf where padded)."""
+
+    systems: tuple[SystemData, ...]
+    width: int
+    charge: NDArray
+    size: NDArray
+    lambda0: NDArray
+    cum: dict[bytes, NDArray]
+
+    def cum_pk_at(self, t_unique: NDArray, t_key: bytes) -> NDArray:
+        got = self.cum.get(t_key)
+        if got is None:
+            got = np.full((t_unique.shape[0], len(self.systems), self.width), np.inf)
+            for k, s in enumerate(self.systems):
+                got[:, k, : s.n_steps + 1] = _cum_pk_at(s, t_unique, t_key)
+            got.setflags(write=False)
+            if len(self.cum) >= 64:
+                self.cum.clear()
+            self.cum[t_key] = got
+        return got
+
+
+#: (id(db), ids of a layout's systems) -> its _LayoutBlock (the objects kept guard ids).
+_LAYOUTS: dict[tuple[int, tuple[int, ...]], tuple[ThermoDatabase, _LayoutBlock]] = {}
+_LAYOUTS_MAX = 1024
+
+
+def _layout_block(lk: tuple[int, ...], systems: list[SystemData], db: ThermoDatabase) -> _LayoutBlock:
+    key = (id(db), lk)
+    got = _LAYOUTS.get(key)
+    if got is not None and got[0] is db and all(map(operator.is_, got[1].systems, systems)):
+        return got[1]
+    kk = len(systems)
+    width = 1 + max(s.n_steps for s in systems)
+    charge = np.zeros((kk, width))
+    size = np.zeros((kk, width))
+    lam0 = np.zeros((kk, width))
+    for k, s in enumerate(systems):
+        ns = s.n_steps + 1
+        charge[k, :ns] = s.charges
+        size[k, :ns] = s.ion_size_angstrom
+        lam0[k, :ns] = _lambda0(s, db)
+    for a in (charge, size, lam0):
+        a.setflags(write=False)
+    blk = _LayoutBlock(tuple(systems), width, charge, size, lam0, {})
+    if len(_LAYOUTS) >= _LAYOUTS_MAX:
+        _LAYOUTS.clear()
+    _LAYOUTS[key] = (db, blk)
+    return blk
 
 
 #: (id(system), the batch's distinct temperatures as bytes) -> (system, cumulative pK
