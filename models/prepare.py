@@ -426,16 +426,17 @@ class _LayoutBlock:
             got = np.full((t_unique.shape[0], len(self.systems), self.width), np.inf)
             for k, s in enumerate(self.systems):
                 got[:, k, : s.n_steps + 1] = _cum_pk_at(s, t_unique, t_key)
-            got.setflags(write=False)
-            if len(self.cum) >= 64:
-                self.cum.clear()
-            self.cum[t_key] = got
+            if t_unique.shape[0] <= _T_CACHE_MAX_TEMPS:
+                got.setflags(write=False)
+                if len(self.cum) >= 8:
+                    self.cum.clear()
+                self.cum[t_key] = got
         return got
 
 
 #: (id(db), ids of a layout's systems) -> its _LayoutBlock (the objects kept guard ids).
 _LAYOUTS: dict[tuple[int, tuple[int, ...]], tuple[ThermoDatabase, _LayoutBlock]] = {}
-_LAYOUTS_MAX = 1024
+_LAYOUTS_MAX = 256
 
 
 def _layout_block(lk: tuple[int, ...], systems: list[SystemData], db: ThermoDatabase) -> _LayoutBlock:
@@ -469,6 +470,9 @@ def _layout_block(lk: tuple[int, ...], systems: list[SystemData], db: ThermoData
 _CUM_PK: dict[tuple[int, bytes], tuple[SystemData, NDArray]] = {}
 _WATER: dict[tuple[int, bytes], tuple[ThermoDatabase, dict[str, NDArray]]] = {}
 _T_CACHE_MAX = 4096
+#: Only small sets of distinct temperatures are cached (bounds the bytes held; a batch
+#: with many temperatures amortises the evaluation anyway).
+_T_CACHE_MAX_TEMPS = 16
 
 
 def _cum_pk_at(s: SystemData, t_unique: NDArray, t_key: bytes) -> NDArray:
@@ -478,6 +482,8 @@ def _cum_pk_at(s: SystemData, t_unique: NDArray, t_key: bytes) -> NDArray:
     if got is not None and got[0] is s:
         return got[1]
     cum = cumulative_pk(np.atleast_2d(s.pka(t_unique)))
+    if t_unique.shape[0] > _T_CACHE_MAX_TEMPS:
+        return cum
     cum.setflags(write=False)
     if len(_CUM_PK) >= _T_CACHE_MAX:
         _CUM_PK.clear()
@@ -492,6 +498,8 @@ def _water_terms_at(t_unique: NDArray, t_key: bytes, db: ThermoDatabase) -> dict
     if got is not None and got[0] is db:
         return got[1]
     terms = water_terms(t_unique, db)
+    if t_unique.shape[0] > _T_CACHE_MAX_TEMPS:
+        return terms
     for v in terms.values():
         v.setflags(write=False)
     if len(_WATER) >= _T_CACHE_MAX:

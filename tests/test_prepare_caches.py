@@ -80,3 +80,12 @@ def test_a_stream_gets_the_same_answer_alone_in_any_batch_and_in_any_order() -> 
     alone = [solve_many([s], db)[0] for s in specs]
     reverse = solve_many(specs[::-1], db)[::-1]
     assert repr(together) == repr(alone) == repr(reverse)
+
+
+def test_temperature_caches_keep_only_small_temperature_sets() -> None:
+    db = load_database()
+    plain = (Entry("Na+", 2.0, "mmol/L"), Entry("carbonate", 1.0, "mmol/L"))
+    many = [StreamSpec(plain, temperature_c=1.0 + 0.5 * k) for k in range(prepare._T_CACHE_MAX_TEMPS + 5)]
+    before = (dict(prepare._CUM_PK), dict(prepare._WATER))
+    solve_many(many, db)
+    assert (prepare._CUM_PK, prepare._WATER) == before
