@@ -354,9 +354,22 @@ def _result(
             None if cfa != cfa else cfa * rho,
         )
     return new_result(
-        ph, temp, model, ionic_l, beta_l, ex.alkalinity[j], tuple(species), tuple(systems),
-        resid_l, int(iters), db.version, ex.calcite_si[j], ex.langelier[j],
-        ex.conductivity_us_cm[j], calib, tuple(parsed_warn),
+        ph=ph,
+        temperature_c=temp,
+        activity_model=model,
+        ionic_strength_mol_l=ionic_l,
+        buffer_capacity_mmol_l_per_ph=beta_l,
+        alkalinity=ex.alkalinity[j],
+        species=tuple(species),
+        systems=tuple(systems),
+        charge_balance_residual_mol_l=resid_l,
+        iterations=int(iters),
+        database_version=db.version,
+        calcite_saturation_index=ex.calcite_si[j],
+        langelier_index=ex.langelier[j],
+        conductivity_estimate_us_cm=ex.conductivity_us_cm[j],
+        calibration=calib,
+        warnings=tuple(parsed_warn),
     )
 
 

@@ -117,5 +117,5 @@ def _positional_builder(cls: type) -> Callable[..., Any]:
 new_species = _positional_builder(SpeciesAmount)
 #: ``new_system(name, total_mol_l, fractions, open_to_gas)``
 new_system = _positional_builder(SystemSpeciation)
-#: ``new_result(...)``: every EquilibriumResult field in declaration order
+#: ``new_result(...)``: every EquilibriumResult field (by keyword, or in declaration order)
 new_result = _positional_builder(EquilibriumResult)
