@@ -26,6 +26,9 @@ from models.results import (
     SpeciesAmount,
     StreamFailure,
     SystemSpeciation,
+    new_result,
+    new_species,
+    new_system,
 )
 from models.solver import (
     NOT_CONVERGED,
@@ -40,7 +43,7 @@ from models.solver import (
     solve_balance,
     species_state,
 )
-from models.stream import StreamSpec
+from models.stream import ACTIVITY_MODELS, StreamSpec
 from models.thermo import ThermoDatabase, load_database
 
 __all__ = ["solve", "solve_many", "Solved", "solve_arrays", "failure_message"]
@@ -210,17 +213,24 @@ def solve(spec: StreamSpec, db: ThermoDatabase | None = None) -> EquilibriumResu
 
 @dataclass(frozen=True)
 class _Tables:
-    """Whole-batch arrays turned into Python lists once (cheap per-stream access)."""
+    """Whole-batch arrays turned into Python lists once (cheap per-stream access).
 
-    m: list            # (N, K, P) system species [mol/L]
-    g: list            # (N, K, P) activity coefficients
-    frac: list         # (N, K, P) fractions
+    Activities are products of the same floats in the same order as a per-species
+    c·γ/ρ (or c·γ·(1/ρ)) in Python, done elementwise in numpy: the same IEEE results."""
+
+    sys_rows: list     # per stream: (m [mol/L], γ, activity, fraction) of its system
+                       # species, flat in slot order (padding left out)
+    layout: list       # per stream: _Layout of its slots
     tot: list          # (N, K) totals [mol/L]
-    h: list            # (N, 4) m(H+), γ(H+), m(OH-), γ(OH-) [mol/L]
+    h: list            # (N, 6) m(H+), γ(H+), m(OH-), γ(OH-) [mol/L], a(H+), a(OH-)
     strong: list       # (N, S) strong ions [mol/L]
     strong_g: list     # (N, S)
+    strong_a: list     # (N, S)
     scalars: list      # (N, 8) pH, I, β, residual, T, ρ, iterations, status
     is_open: list      # (N, K)
+    added: list        # (N,) calibration: strong ion added [mol/kg]
+    carb: list         # (N,) calibration: carbonate from alkalinity [mol/kg] or NaN
+    code: list         # (N,) activity model code
     strong_charges: tuple[int, ...]
 
     @staticmethod
@@ -231,18 +241,72 @@ class _Tables:
         with np.errstate(invalid="ignore", divide="ignore"):
             frac = np.where(tot[..., None] > 0, m / tot[..., None], 0.0)
         r = rho[:, None, None]
-        h = np.stack([m_h * rho, 10**st.log_gamma_h, m_oh * rho, 10**st.log_gamma_oh], axis=1)
+        with np.errstate(all="ignore"):  # failed rows may hold NaN/inf: never read
+            m_l = m * r
+            g = 10.0**st.log_gamma_species
+            act = m_l * g * (1.0 / rho)[:, None, None]
+            ch, gh, coh, goh = m_h * rho, 10**st.log_gamma_h, m_oh * rho, 10**st.log_gamma_oh
+            h = np.stack([ch, gh, coh, goh, ch * gh / rho, coh * goh / rho], axis=1)
+            strong = sv.assembled.strong_molal * rho[:, None]
+            strong_g = 10.0**ex.strong_log_gamma
+            strong_a = strong * strong_g / rho[:, None]
+            per_species = np.stack([m_l, g, act, frac])
+        sys_rows, layout = _gather_layouts(sv.assembled.slots, per_species)
         return _Tables(
-            (m * r).tolist(), (10.0**st.log_gamma_species).tolist(), frac.tolist(),
+            sys_rows, layout,
             (tot * rho[:, None]).tolist(), h.tolist(),
-            (sv.assembled.strong_molal * rho[:, None]).tolist(), (10.0**ex.strong_log_gamma).tolist(),
+            strong.tolist(), strong_g.tolist(), strong_a.tolist(),
             np.stack(
                 [st.ph, st.ionic_strength * rho, ex.beta_mol_kg * rho * 1e3, st.residual * rho,
                  sv.assembled.temperature_c, rho, st.iterations, st.status], axis=1,
             ).tolist(),
             p.is_open.tolist(),
+            sv.added_mol_kg.tolist(),
+            sv.carbonate_from_alkalinity.tolist(),
+            p.activity_code.tolist(),
             tuple(load_database().strong_ions[s].charge for s in sv.assembled.strong_names),
         )
+
+
+@dataclass(frozen=True)
+class _Layout:
+    """A slot layout's species, flat in slot order, and each slot's span in that order."""
+
+    names: tuple[str, ...]
+    charges: tuple[int, ...]
+    spans: tuple[tuple[int, int], ...]
+
+
+def _gather_layouts(slots: list, per_species: NDArray) -> tuple[list, list]:
+    """Per stream, the (4, N, K, P) quantities of its real system species as four flat
+    lists, gathered once per layout (streams sharing their systems in slot order)."""
+    q, n, k_max, p_max = per_species.shape
+    flat = per_species.reshape(q, n, k_max * p_max)
+    groups: dict[tuple[int, ...], list[int]] = {}
+    for j, sl in enumerate(slots):
+        key = tuple(map(id, sl))
+        rows = groups.get(key)
+        if rows is None:
+            groups[key] = [j]
+        else:
+            rows.append(j)
+    sys_rows: list = [None] * n
+    layout: list = [None] * n
+    for rows in groups.values():
+        sl = slots[rows[0]]
+        idx: list[int] = []
+        spans = []
+        for k, sd in enumerate(sl):
+            spans.append((len(idx), len(idx) + len(sd.species)))
+            idx.extend(range(k * p_max, k * p_max + len(sd.species)))
+        lay = _Layout(
+            tuple(sp for sd in sl for sp in sd.species), tuple(z for sd in sl for z in sd.charges), tuple(spans)
+        )
+        got = flat[:, rows][:, :, idx].transpose(1, 0, 2).tolist()
+        for r, j in enumerate(rows):
+            sys_rows[j] = got[r]
+            layout[j] = lay
+    return sys_rows, layout
 
 
 def _result(
@@ -260,29 +324,21 @@ def _result(
     if status != OK:
         return StreamFailure("solve", STATUS_MESSAGES[status], failure_message(status))
     asm = sv.assembled
-    p = sv.problem
-    mh, gh, moh, goh = tb.h[j]
-    species: list[SpeciesAmount] = [
-        SpeciesAmount("H+", 1, mh, mh * gh / rho, gh),
-        SpeciesAmount("OH-", -1, moh, moh * goh / rho, goh),
-    ]
-    strong_row, strong_g = tb.strong[j], tb.strong_g[j]
-    for name, z, c, g in zip(asm.strong_names, tb.strong_charges, strong_row, strong_g):
+    mh, gh, moh, goh, ah, aoh = tb.h[j]
+    species: list[SpeciesAmount] = [new_species("H+", 1, mh, ah, gh), new_species("OH-", -1, moh, aoh, goh)]
+    for name, z, c, a, g in zip(asm.strong_names, tb.strong_charges, tb.strong[j], tb.strong_a[j], tb.strong_g[j]):
         if c > 0.0:
-            species.append(SpeciesAmount(name, z, c, c * g / rho, g))
+            species.append(new_species(name, z, c, a, g))
     systems: list[SystemSpeciation] = []
-    m_row, g_row, f_row, t_row, open_row = tb.m[j], tb.g[j], tb.frac[j], tb.tot[j], tb.is_open[j]
-    inv_rho = 1.0 / rho
-    for k, sd in enumerate(asm.slots[j]):
-        mk, gk = m_row[k], g_row[k]
+    m_row, g_row, a_row, f_row = tb.sys_rows[j]
+    t_row, open_row, lay = tb.tot[j], tb.is_open[j], tb.layout[j]
+    for k, (sd, (lo, hi)) in enumerate(zip(asm.slots[j], lay.spans)):
         total = t_row[k]
-        fr = dict(zip(sd.species, f_row[k])) if total > 0 else {sp: float(q == 0) for q, sp in enumerate(sd.species)}
-        systems.append(SystemSpeciation(sd.name, total, fr, open_row[k]))
-        species.extend(
-            SpeciesAmount(sp, z, c, c * g * inv_rho, g) for sp, z, c, g in zip(sd.species, sd.charges, mk, gk)
-        )
+        fr = dict(zip(sd.species, f_row[lo:hi])) if total > 0 else {sp: float(q == 0) for q, sp in enumerate(sd.species)}
+        systems.append(new_system(sd.name, total, fr, open_row[k]))
+    species += map(new_species, lay.names, lay.charges, m_row, a_row, g_row)
     ionic = ionic_l / rho
-    model = _model_name(int(p.activity_code[j]))
+    model = ACTIVITY_MODELS[tb.code[j]]
     limit = VALIDITY_LIMIT_MOL_KG[model]
     if ionic > limit:
         parsed_warn.append(
@@ -290,14 +346,14 @@ def _result(
             f"of the {model} activity model: treat the pH as approximate"
         )
     calib = None
-    if sv.added_mol_kg[j] or not np.isnan(sv.carbonate_from_alkalinity[j]):
-        cfa = sv.carbonate_from_alkalinity[j]
+    added, cfa = tb.added[j], tb.carb[j]
+    if added or cfa == cfa:  # calibrated: something added, or a carbonate total (not NaN)
         calib = Calibration(
             _balance_ion(sv, j),
-            float(sv.added_mol_kg[j]) * rho,
-            None if np.isnan(cfa) else float(cfa) * rho,
+            added * rho,
+            None if cfa != cfa else cfa * rho,
         )
-    return EquilibriumResult(
+    return new_result(
         ph=ph,
         temperature_c=temp,
         activity_model=model,
@@ -320,8 +376,3 @@ def _result(
 def _balance_ion(sv: Solved, j: int) -> str | None:
     return sv.balance_on[j]
 
-
-def _model_name(code: int) -> str:
-    from models.stream import ACTIVITY_MODELS
-
-    return ACTIVITY_MODELS[code]

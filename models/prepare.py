@@ -14,6 +14,7 @@ under 1 % below about 0.1 mol/L of dissolved salts.
 from __future__ import annotations
 
 import math
+import operator
 from dataclasses import dataclass, field
 from functools import lru_cache
 
@@ -25,7 +26,7 @@ from models.activity import HARD_LIMIT_MOL_KG, model_code
 from models.errors import InputError
 from models.fractions import cumulative_pk
 from models.solver import BalanceProblem
-from models.stream import ACTIVITY_MODELS, BALANCE_IONS, StreamSpec
+from models.stream import ACTIVITY_MODELS, BALANCE_IONS, CustomSystem, StreamSpec
 from models.thermo import SystemData, ThermoDatabase
 
 __all__ = ["ALKALINITY", "ParsedStream", "parse_stream", "assemble", "Assembled", "water_terms"]
@@ -78,6 +79,10 @@ _ENTRY_PLANS: dict[int, tuple[ThermoDatabase, dict]] = {}
 #: Per database: temperature -> {built-in system: its extrapolation warnings} (usually empty).
 _EXTRAPOLATED: dict[int, tuple[ThermoDatabase, dict]] = {}
 _EXTRAPOLATED_MAX = 4096
+#: Per database: a custom system's definition -> its SystemData (immutable, shared by
+#: the streams that declare it identically; only successful builds are kept).
+_CUSTOMS: dict[int, tuple[ThermoDatabase, dict]] = {}
+_CUSTOMS_MAX = 1024
 
 
 def _per_db(store: dict[int, tuple[ThermoDatabase, dict]], db: ThermoDatabase) -> dict:
@@ -110,7 +115,37 @@ def _entry_plan(name: str, unit: str, customs: dict[str, SystemData], db: Thermo
             )
     except InputError as exc:
         raise InputError(exc.message, exc.field or where + "/unit") from None
-    return ion, system, factor, units.is_per_kg(unit)
+    return ion, system, float(factor), units.is_per_kg(unit)
+
+
+def _custom_key(cs: CustomSystem) -> tuple | None:
+    """The exact definition of a custom system as a cache key, or None (not cacheable).
+
+    Floats are keyed by their bits (float.hex: -0.0 and 0.0 stay apart), the charge only
+    as a plain int (True == 1 must still be refused)."""
+    if type(cs.name) is not str or type(cs.top_charge) is not int:
+        return None
+    try:
+        pka = tuple(map(float.hex, cs.pka))
+        dh = None if cs.delta_h_kj_mol is None else tuple(map(float.hex, cs.delta_h_kj_mol))
+    except TypeError:  # not floats: built (and checked) afresh each time
+        return None
+    return (cs.name, cs.top_charge, pka, dh)
+
+
+def _custom_system(cs: CustomSystem, db: ThermoDatabase) -> SystemData:
+    """``db.custom_system`` for ``cs``, cached per database by the exact definition."""
+    key = _custom_key(cs)
+    if key is None:
+        return db.custom_system(cs.name, cs.pka, cs.top_charge, cs.delta_h_kj_mol)
+    cache = _per_db(_CUSTOMS, db)
+    got = cache.get(key)
+    if got is None:
+        got = db.custom_system(cs.name, cs.pka, cs.top_charge, cs.delta_h_kj_mol)
+        if len(cache) >= _CUSTOMS_MAX:  # bounded: every request may declare new ones
+            cache.clear()
+        cache[key] = got
+    return got
 
 
 def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
@@ -130,15 +165,16 @@ def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
     rho = _density(t)
     customs: dict[str, SystemData] = {}
     for i, cs in enumerate(spec.custom_systems):
-        where = f"/custom_systems/{i}"
         if cs.name in db.systems or cs.name in db.strong_ions or cs.name == ALKALINITY:
-            raise InputError(f"custom system name {cs.name!r} is already a built-in name", where + "/name")
+            raise InputError(
+                f"custom system name {cs.name!r} is already a built-in name", f"/custom_systems/{i}/name"
+            )
         if cs.name in customs:
-            raise InputError(f"custom system {cs.name!r} is declared twice", where + "/name")
+            raise InputError(f"custom system {cs.name!r} is declared twice", f"/custom_systems/{i}/name")
         try:
-            customs[cs.name] = db.custom_system(cs.name, cs.pka, cs.top_charge, cs.delta_h_kj_mol)
+            customs[cs.name] = _custom_system(cs, db)
         except InputError as exc:
-            raise InputError(exc.message, where + "/pka") from None
+            raise InputError(exc.message, f"/custom_systems/{i}/pka") from None
     if not spec.composition:
         raise InputError("the composition is empty: give at least one ion or system", "/composition")
     plans = _per_db(_ENTRY_PLANS, db)
@@ -147,17 +183,18 @@ def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
     totals: list[float] = []
     alkalinity: float | None = None
     seen: set[str] = set()
+    isfinite = math.isfinite
     for i, entry in enumerate(spec.composition):
         name = entry.name
         if name in seen:
             raise InputError(f"{name} appears twice in the composition", f"/composition/{i}/name")
         seen.add(name)
         value = float(entry.value)
-        if not (math.isfinite(value) and value >= 0.0):
+        if not (isfinite(value) and value >= 0.0):
             raise InputError(f"{name}: the amount must be a finite number ≥ 0", f"/composition/{i}/value")
         key = (name, entry.unit)
         try:
-            plan = plans.get(key) if name not in customs else None
+            plan = plans.get(key) if not customs or name not in customs else None
         except TypeError:  # an unhashable unit: the checks below name the fault
             plan = key = None
         if plan is None:
@@ -165,8 +202,8 @@ def parse_stream(spec: StreamSpec, db: ThermoDatabase) -> ParsedStream:
             if key is not None and name not in customs:
                 plans[key] = plan
         ion, system, factor, per_kg = plan
-        amount = value * factor
-        molal = float(amount) if per_kg else float(amount) / rho
+        amount = value * factor  # a float: both are (see _entry_plan)
+        molal = amount if per_kg else amount / rho
         if ion is not None:
             strong[name] = molal
         elif system is not None:
@@ -226,8 +263,8 @@ def _finish(
     alkalinity: float | None,
 ) -> ParsedStream:
     warnings: list[str] = []
-    names = [s.name for s in systems]
     pco2 = spec.co2_partial_pressure_atm
+    names = [s.name for s in systems] if alkalinity is not None or pco2 is not None else []
     open_slot: int | None = None
     if spec.balance_on is not None and spec.balance_on not in BALANCE_IONS:
         raise InputError(f"balance_on must be one of {', '.join(BALANCE_IONS)}", "/balance_on")
@@ -299,6 +336,7 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
     rho = np.array([p.density_kg_l for p in parsed], dtype=float)
     t_unique, t_index = np.unique(temp, return_inverse=True)
     t_index = t_index.reshape(-1)
+    t_key = t_unique.tobytes()
     strong_names = tuple(db.strong_ions)
     charges = np.array([db.strong_ions[s].charge for s in strong_names], dtype=float)
     strong_m = np.zeros((n, len(strong_names)))
@@ -338,26 +376,22 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
         if sk:
             vals = np.array([list(parsed[i].strong.values()) for i in rows], dtype=float)
             strong_m[np.ix_(rows, [col[s] for s in sk])] = vals
-    # Each system's constants per distinct temperature, evaluated once.
-    pk_at: dict[int, NDArray] = {}
-    for systems, rows in layouts.values():
+    # Each layout's constant blocks (and its pK at the batch's temperatures), made once.
+    for lk, (systems, rows) in layouts.items():
         ii = np.array(rows)
         kk = len(systems)
         total[ii, :kk] = np.array([parsed[i].totals for i in rows], dtype=float).reshape(len(rows), kk)
-        for k, s in enumerate(systems):
-            ns = s.n_steps + 1
-            charge[ii, k, :ns] = s.charges
-            size[ii, k, :ns] = s.ion_size_angstrom
-            lam0[ii, k, :ns] = _lambda0(s, db)
-            cum_s = pk_at.get(id(s))
-            if cum_s is None:
-                cum_s = pk_at[id(s)] = cumulative_pk(np.atleast_2d(s.pka(t_unique)))
-            cum[ii, k, :ns] = cum_s[t_index[ii]]
+        blk = _layout_block(lk, systems, db)
+        pw = blk.width
+        charge[ii, :kk, :pw] = blk.charge
+        size[ii, :kk, :pw] = blk.size
+        lam0[ii, :kk, :pw] = blk.lambda0
+        cum[ii, :kk, :pw] = blk.cum_pk_at(t_unique, t_key)[t_index[ii]]
     if is_open.any():
         rows, slots_ = np.nonzero(is_open)
         pco2 = np.array([parsed[i].co2_partial_pressure_atm for i in rows], dtype=float)
         open_neutral[rows, slots_] = 10.0 ** db.log_kh_co2(temp[rows]) * pco2
-    water_u = water_terms(t_unique, db)
+    water_u = _water_terms_at(t_unique, t_key, db)
     codes = {m: model_code(m) for m in {p.activity_model for p in parsed}}
     problem = BalanceProblem(
         strong_charge=strong_m @ charges,
@@ -372,6 +406,106 @@ def assemble(parsed: list[ParsedStream], db: ThermoDatabase) -> Assembled:
         ion_size=size,
     )
     return Assembled(problem, temp, rho, strong_names, strong_m, [p.systems for p in parsed], lam0)
+
+
+@dataclass
+class _LayoutBlock:
+    """A slot layout's (K, P) blocks: charges, ion sizes, λ° (0 where none or padded),
+    and its cumulative pK per set of distinct temperatures (+inf where padded)."""
+
+    systems: tuple[SystemData, ...]
+    width: int
+    charge: NDArray
+    size: NDArray
+    lambda0: NDArray
+    cum: dict[bytes, NDArray]
+
+    def cum_pk_at(self, t_unique: NDArray, t_key: bytes) -> NDArray:
+        got = self.cum.get(t_key)
+        if got is None:
+            got = np.full((t_unique.shape[0], len(self.systems), self.width), np.inf)
+            for k, s in enumerate(self.systems):
+                got[:, k, : s.n_steps + 1] = _cum_pk_at(s, t_unique, t_key)
+            if t_unique.shape[0] <= _T_CACHE_MAX_TEMPS:
+                got.setflags(write=False)
+                if len(self.cum) >= 8:
+                    self.cum.clear()
+                self.cum[t_key] = got
+        return got
+
+
+#: (id(db), ids of a layout's systems) -> its _LayoutBlock (the objects kept guard ids).
+_LAYOUTS: dict[tuple[int, tuple[int, ...]], tuple[ThermoDatabase, _LayoutBlock]] = {}
+_LAYOUTS_MAX = 256
+
+
+def _layout_block(lk: tuple[int, ...], systems: list[SystemData], db: ThermoDatabase) -> _LayoutBlock:
+    key = (id(db), lk)
+    got = _LAYOUTS.get(key)
+    if got is not None and got[0] is db and all(map(operator.is_, got[1].systems, systems)):
+        return got[1]
+    kk = len(systems)
+    width = 1 + max(s.n_steps for s in systems)
+    charge = np.zeros((kk, width))
+    size = np.zeros((kk, width))
+    lam0 = np.zeros((kk, width))
+    for k, s in enumerate(systems):
+        ns = s.n_steps + 1
+        charge[k, :ns] = s.charges
+        size[k, :ns] = s.ion_size_angstrom
+        lam0[k, :ns] = _lambda0(s, db)
+    for a in (charge, size, lam0):
+        a.setflags(write=False)
+    blk = _LayoutBlock(tuple(systems), width, charge, size, lam0, {})
+    if len(_LAYOUTS) >= _LAYOUTS_MAX:
+        _LAYOUTS.clear()
+    _LAYOUTS[key] = (db, blk)
+    return blk
+
+
+#: (id(system), the batch's distinct temperatures as bytes) -> (system, cumulative pK
+#: array), and (id(db), temperatures) -> (db, water terms): the same computation on the
+#: same input array, done once. Arrays are read-only (callers index copies out of them);
+#: the object kept with each entry guards against a reused id.
+_CUM_PK: dict[tuple[int, bytes], tuple[SystemData, NDArray]] = {}
+_WATER: dict[tuple[int, bytes], tuple[ThermoDatabase, dict[str, NDArray]]] = {}
+_T_CACHE_MAX = 4096
+#: Only small sets of distinct temperatures are cached (bounds the bytes held; a batch
+#: with many temperatures amortises the evaluation anyway).
+_T_CACHE_MAX_TEMPS = 16
+
+
+def _cum_pk_at(s: SystemData, t_unique: NDArray, t_key: bytes) -> NDArray:
+    """``cumulative_pk`` of ``s`` at the distinct temperatures ``t_unique`` [°C] (cached)."""
+    key = (id(s), t_key)
+    got = _CUM_PK.get(key)
+    if got is not None and got[0] is s:
+        return got[1]
+    cum = cumulative_pk(np.atleast_2d(s.pka(t_unique)))
+    if t_unique.shape[0] > _T_CACHE_MAX_TEMPS:
+        return cum
+    cum.setflags(write=False)
+    if len(_CUM_PK) >= _T_CACHE_MAX:
+        _CUM_PK.clear()
+    _CUM_PK[key] = (s, cum)
+    return cum
+
+
+def _water_terms_at(t_unique: NDArray, t_key: bytes, db: ThermoDatabase) -> dict[str, NDArray]:
+    """``water_terms`` at the distinct temperatures ``t_unique`` [°C] (cached, read-only)."""
+    key = (id(db), t_key)
+    got = _WATER.get(key)
+    if got is not None and got[0] is db:
+        return got[1]
+    terms = water_terms(t_unique, db)
+    if t_unique.shape[0] > _T_CACHE_MAX_TEMPS:
+        return terms
+    for v in terms.values():
+        v.setflags(write=False)
+    if len(_WATER) >= _T_CACHE_MAX:
+        _WATER.clear()
+    _WATER[key] = (db, terms)
+    return terms
 
 
 def water_terms(temperature_c: NDArray, db: ThermoDatabase) -> dict[str, NDArray]:
