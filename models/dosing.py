@@ -97,6 +97,22 @@ class DoseCurve:
     equivalence_ph: tuple[float, ...]
 
 
+
+def _ph_text(ph: float, digits: int = 2) -> str:
+    """A pH for a message: fixed decimals, and never "-0.00"."""
+    text = f"{ph:.{digits}f}"
+    return text[1:] if text.startswith("-") and float(text) == 0.0 else text
+
+
+def _distinct_ph(a: float, b: float) -> tuple[str, str]:
+    """Two pH values to 2 decimals, or to as many more (up to 4) as tell them apart, so a
+    message never reads "from pH 7.00 to 7.00"."""
+    for digits in (2, 3, 4):
+        sa, sb = _ph_text(a, digits), _ph_text(b, digits)
+        if sa != sb:
+            break
+    return sa, sb
+
 def _with_reagent_slots(spec: StreamSpec, reagent: Reagent, db: ThermoDatabase) -> StreamSpec:
     names = {e.name for e in spec.composition}
     extra = tuple(
@@ -514,14 +530,16 @@ def _plan(parsed, specs, reagent, sp, db, out, where) -> None:
             raises = ph_cap_j > ph0_j if ph_cap_j != ph0_j else base
             what = "raises" if raises else "lowers"
             wrong = (sp_j < ph0_j) if raises else (sp_j > ph0_j)
+            own, target = _distinct_ph(ph0_j, sp_j)
             why = (
-                f"{reagent.name} {what} pH: it cannot take this stream from pH {ph0_j:.2f} to {sp_j:.2f}"
+                f"{reagent.name} {what} pH: it cannot take this stream from pH {own} to {target}"
                 if wrong
                 else f"setpoint {sp_j:.2f} is beyond what {reagent.name} can reach"
             )
             out[i] = UnreachableSetpoint(
-                f"{why}; reachable with {reagent.name}: pH {reach[0]:.2f} to {reach[1]:.2f} "
-                f"(between the stream's own pH {ph0_j:.2f} and pH {ph_cap_j:.2f} at the limit "
+                f"{why}; reachable with {reagent.name}: pH {_ph_text(reach[0])} to "
+                f"{_ph_text(reach[1])} (between the stream's own pH {own} and pH "
+                f"{_ph_text(ph_cap_j)} at the limit "
                 f"dose of {cap_l[j] * 1e3:.4g} mmol/L)",
                 reach[0], reach[1],
             )

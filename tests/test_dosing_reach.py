@@ -180,6 +180,25 @@ def test_an_acid_asked_to_raise_the_ph_is_unreachable_with_its_range() -> None:
     assert res.reachable_min_ph < 1.0  # 1 mol/L HCl: pH ≈ 0 (textbook)
 
 
+def test_a_wrong_direction_message_shows_the_two_ph_values_apart() -> None:
+    # Dilute NaCl at 25 °C: pH = pKw/2 = 6.9975 (IAPWS R11-07 pKw 13.995), which rounds
+    # to 7.00 like the setpoint; the message must still tell the two apart.
+    stream = _spec(("Na+", 0.01), ("Cl-", 0.01))
+    own = f"{solve(stream).ph:.3f}"
+    assert own.startswith("6.99")
+    res = _one(stream, "HCl", 7.0)
+    assert isinstance(res, UnreachableSetpoint)
+    assert f"from pH {own} to 7.000" in res.message
+    assert f"own pH {own}" in res.message
+
+
+def test_an_unreachable_message_never_prints_minus_zero() -> None:
+    # 1 mol/L HCl limit dose reaches pH ≈ 0 (textbook); it must not read "-0.00".
+    res = _one(_spec(("Na+", 0.01), ("Cl-", 0.01)), "HCl", 7.5)
+    assert isinstance(res, UnreachableSetpoint)
+    assert "-0.00" not in res.message
+
+
 def test_a_base_asked_to_lower_the_ph_is_unreachable_with_its_range() -> None:
     stream = _spec(("Na+", 2.0), ("carbonate", 2.0))
     ph0 = solve(stream).ph
