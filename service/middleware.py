@@ -30,6 +30,11 @@ __all__ = [
 
 REQUEST_ID_HEADER = "X-Request-ID"
 BATCH_SIZE_SCOPE_KEY = "protolyte.batch_size"
+#: Set by the outer fast path (service.fastpath) when it hands a request to the full app:
+#: declined (answer it as usual), or its solve raised (the exception, the start time).
+DECLINED_SCOPE_KEY = "protolyte.fast_path_declined"
+SOLVE_ERROR_SCOPE_KEY = "protolyte.fast_path_error"
+START_SCOPE_KEY = "protolyte.fast_path_start"
 _ID_RE = re.compile(r"^[A-Za-z0-9._-]{1,64}$")
 _log = logging.getLogger(ACCESS_LOGGER)
 _ID_POOL_SIZE = 256
@@ -64,7 +69,7 @@ def accept_request_id(value: str | None) -> str:
     return fresh_request_id()
 
 
-def _request_id_header(scope: Scope) -> str | None:
+def request_id_header(scope: Scope) -> str | None:
     """The first ``X-Request-ID`` header (latin-1), as ``Headers(scope=scope).get`` finds it."""
     for name, value in scope["headers"]:
         if name == b"x-request-id":
@@ -89,8 +94,12 @@ class RequestContextMiddleware:
         if scope["type"] != "http":
             await self.app(scope, receive, send)
             return
-        start = time.perf_counter()
-        rid = accept_request_id(_request_id_header(scope))
+        if SOLVE_ERROR_SCOPE_KEY in scope:  # the outer fast path's request: its start and id
+            start = scope.pop(START_SCOPE_KEY)
+            rid = scope[REQUEST_ID_SCOPE_KEY]
+        else:
+            start = time.perf_counter()
+            rid = accept_request_id(request_id_header(scope))
         scope[REQUEST_ID_SCOPE_KEY] = rid
         status = 500
         recorded = False
@@ -118,16 +127,24 @@ class RequestContextMiddleware:
             await self.app(scope, receive, send_with_id)
         finally:
             elapsed = record() if not recorded else time.perf_counter() - start
-            extra: dict[str, Any] = {
-                "request_id": rid,
-                "method": str(scope.get("method", "")),
-                "route": _route_template(scope),
-                "status": status,
-                "duration_seconds": round(elapsed, 6),
-                "batch_size": scope.get(BATCH_SIZE_SCOPE_KEY),
-            }
-            if status >= 500 or not write_access_line(_log, extra):
-                _log.log(logging.ERROR if status >= 500 else logging.INFO, "request", extra=extra)
+            log_request(
+                rid, str(scope.get("method", "")), _route_template(scope), status, elapsed,
+                scope.get(BATCH_SIZE_SCOPE_KEY),
+            )
+
+
+def log_request(rid: str, method: str, route: str, status: int, elapsed: float, batch_size: Any) -> None:
+    """The access line of one request (ERROR for a 5xx status)."""
+    extra: dict[str, Any] = {
+        "request_id": rid,
+        "method": method,
+        "route": route,
+        "status": status,
+        "duration_seconds": round(elapsed, 6),
+        "batch_size": batch_size,
+    }
+    if status >= 500 or not write_access_line(_log, extra):
+        _log.log(logging.ERROR if status >= 500 else logging.INFO, "request", extra=extra)
 
 
 class BodyTooLarge(HTTPException):
