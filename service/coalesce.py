@@ -39,6 +39,9 @@ Outcome = EquilibriumResult | StreamFailure | BaseException
 SolveMany = Callable[[Sequence[StreamSpec]], list[EquilibriumResult | StreamFailure]]
 
 
+_get_running_loop = asyncio._get_running_loop  # None outside a loop (no exception to raise and catch)
+
+
 def _stopping() -> ProblemError:
     return ProblemError(
         503,
@@ -71,12 +74,10 @@ class Coalescer:
     @property
     def running(self) -> bool:
         """True while the collector runs on the current event loop."""
-        if self._task is None or self._task.done():
+        task = self._task
+        if task is None or task.done():
             return False
-        try:
-            return asyncio.get_running_loop() is self._loop
-        except RuntimeError:
-            return False
+        return _get_running_loop() is self._loop
 
     async def start(self) -> None:
         """Start the collector task on the running loop (in the app lifespan)."""
