@@ -44,6 +44,33 @@ def _tune_gc() -> None:
     gc.set_threshold(*_GC_THRESHOLDS)
 
 
+class ProtolyteAPI(FastAPI):
+    """FastAPI with the equilibrium fast path in front of its middleware stack.
+
+    A request the fast path takes is answered without the (pass-through, on its success
+    path) error, telemetry and body-limit layers; anything else, FastAPI's own native
+    telemetry being on, or a solve that raises, goes through the whole stack as before.
+    """
+
+    edge: EquilibriumFastPath | None = None
+
+    async def __call__(self, scope: Any, receive: Any, send: Any) -> None:
+        edge = self.edge
+        if (
+            edge is not None
+            and scope["type"] == "http"
+            and "fastapi.telemetry" not in scope
+            and edge.takes(scope)
+            and not self._native_telemetry.enabled()
+        ):
+            if self.middleware_stack is None:
+                self.middleware_stack = self.build_middleware_stack()
+            scope["app"] = self
+            await edge.serve(scope, receive, send, super().__call__)
+            return
+        await super().__call__(scope, receive, send)
+
+
 def create_app(settings: Settings | None = None, core: Core | None = None) -> FastAPI:
     """Build the service; ``settings`` default to the environment, ``core`` to ``models``."""
     settings = settings or Settings.from_env()
@@ -66,7 +93,7 @@ def create_app(settings: Settings | None = None, core: Core | None = None) -> Fa
             if coalescer is not None:
                 await coalescer.stop()
 
-    app = FastAPI(
+    app = ProtolyteAPI(
         title="Protolyte",
         version=service_version(),
         lifespan=lifespan,
@@ -111,6 +138,18 @@ def create_app(settings: Settings | None = None, core: Core | None = None) -> Fa
             cors=bool(settings.cors_origins),
         )
     app.add_middleware(RequestContextMiddleware, metrics=metrics)
+    if settings.fast_path and not app.root_path and getattr(app, "max_body_size", None) is None:
+        app.edge = EquilibriumFastPath(
+            app,  # unused: serve() is given the whole app to fall back to
+            solver=solver,
+            state=state,
+            fastapi_app=app,
+            route=next(r for r in equilibrium.routes if getattr(r, "path", None) == "/v1/equilibrium"),
+            body_limit=settings.body_limit_bytes,
+            api_key=settings.api_key,
+            cors=bool(settings.cors_origins),
+            metrics=metrics,
+        )
 
     def openapi() -> dict[str, Any]:
         return build_openapi(

@@ -5,7 +5,8 @@ of microseconds per stream inside a batch (``solve_many`` is vectorized and a st
 answer does not depend on its batch). :class:`Coalescer` queues each request's
 :class:`~models.stream.StreamSpec` and one collector task, whenever the solver thread is
 free, takes everything queued (up to ``max_batch``) and solves it with ONE
-``solve_many`` call in a worker thread. There is no waiting window: while one group is
+``solve_many`` call in its own worker thread (one hand-off per group, not per
+request: ``run_in_executor``, no anyio capacity limiter or cancel scope). There is no waiting window: while one group is
 solved, new requests queue for the next (natural batching).
 
 Each request's future gets its own outcome: an ``EquilibriumResult``, a
@@ -22,8 +23,7 @@ import contextlib
 import logging
 from collections import deque
 from collections.abc import Callable, Sequence
-
-import anyio.to_thread
+from concurrent.futures import ThreadPoolExecutor
 
 from models.results import EquilibriumResult, StreamFailure
 from models.stream import StreamSpec
@@ -37,6 +37,9 @@ _log = logging.getLogger("protolyte.errors")
 #: One stream's outcome: a result, a core failure, or the exception of a defect.
 Outcome = EquilibriumResult | StreamFailure | BaseException
 SolveMany = Callable[[Sequence[StreamSpec]], list[EquilibriumResult | StreamFailure]]
+
+
+_get_running_loop = asyncio._get_running_loop  # None outside a loop (no exception to raise and catch)
 
 
 def _stopping() -> ProblemError:
@@ -66,16 +69,15 @@ class Coalescer:
         self._wake: asyncio.Event | None = None
         self._task: asyncio.Task[None] | None = None
         self._loop: asyncio.AbstractEventLoop | None = None
+        self._executor: ThreadPoolExecutor | None = None
 
     @property
     def running(self) -> bool:
         """True while the collector runs on the current event loop."""
-        if self._task is None or self._task.done():
+        task = self._task
+        if task is None or task.done():
             return False
-        try:
-            return asyncio.get_running_loop() is self._loop
-        except RuntimeError:
-            return False
+        return _get_running_loop() is self._loop
 
     async def start(self) -> None:
         """Start the collector task on the running loop (in the app lifespan)."""
@@ -83,6 +85,8 @@ class Coalescer:
             return
         self._loop = asyncio.get_running_loop()
         self._wake = asyncio.Event()
+        if self._executor is None:
+            self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="protolyte-coalescer")
         self._task = self._loop.create_task(self._collect(), name="protolyte-coalescer")
 
     async def stop(self) -> None:
@@ -92,6 +96,9 @@ class Coalescer:
             task.cancel()
             with contextlib.suppress(asyncio.CancelledError):
                 await task
+        executor, self._executor = self._executor, None
+        if executor is not None:  # a group still being solved is abandoned (its futures answered below)
+            executor.shutdown(wait=False)
         for fut in self._inflight:
             if not fut.done():
                 fut.set_exception(_stopping())
@@ -132,7 +139,8 @@ class Coalescer:
         return group
 
     async def _collect(self) -> None:
-        assert self._wake is not None
+        assert self._wake is not None and self._loop is not None and self._executor is not None
+        loop, executor = self._loop, self._executor
         while True:
             await self._wake.wait()
             self._wake.clear()
@@ -140,7 +148,7 @@ class Coalescer:
                 self._inflight = [fut for _, fut in group]
                 specs = [spec for spec, _ in group]
                 try:
-                    outcomes = await anyio.to_thread.run_sync(self._solve_group, specs, abandon_on_cancel=True)
+                    outcomes = await loop.run_in_executor(executor, self._solve_group, specs)
                 except Exception as exc:  # noqa: BLE001 -- a defect of the hop itself: fail this group only
                     _log.error("coalesced solve failed", extra={"error_type": type(exc).__name__})
                     outcomes = [exc] * len(specs)

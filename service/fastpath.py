@@ -27,6 +27,7 @@ same too. ``PROTOLYTE_FAST_PATH=0`` turns it off.
 from __future__ import annotations
 
 import hmac
+from time import perf_counter
 from typing import Any
 
 import orjson
@@ -36,6 +37,16 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from service.checks import structural_errors
 from service.convert import response_dict, to_spec
+from service.metrics import Metrics
+from service.middleware import (
+    DECLINED_SCOPE_KEY,
+    SOLVE_ERROR_SCOPE_KEY,
+    START_SCOPE_KEY,
+    accept_request_id,
+    log_request,
+    request_id_header,
+)
+from service.problems import REQUEST_ID_SCOPE_KEY
 from service.schemas import Stream
 from service.solving import Solver
 from service.state import AppState
@@ -61,6 +72,7 @@ class EquilibriumFastPath:
         body_limit: int,
         api_key: str | None,
         cors: bool,
+        metrics: Metrics | None = None,
     ) -> None:
         self.app = app
         self.solver = solver
@@ -70,6 +82,8 @@ class EquilibriumFastPath:
         self.api_key = api_key.encode() if api_key else None
         self.cors = cors
         self.route = route  # what the router puts in scope["route"]: the metrics and log label
+        self.route_path = route.path
+        self.metrics = metrics if metrics is not None else solver.metrics
 
     def _eligible(self, scope: Scope) -> bool:
         """Headers as the fast path needs them (anything unusual: the full app decides)."""
@@ -98,57 +112,66 @@ class EquilibriumFastPath:
                 return False
         return self.state.ready
 
-    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
-        if (
-            scope["type"] != "http"
-            or scope["path"] != PATH
-            or scope["method"] != "POST"
-            or scope.get("root_path")
-            or not self._eligible(scope)
-        ):
-            await self.app(scope, receive, send)
-            return
-        # -- the body, as sent; stop at the limit (the full app answers 413)
+    def takes(self, scope: Scope) -> bool:
+        """True when this request is one the fast path tries (the body decides the rest)."""
+        return (
+            scope["type"] == "http"
+            and scope["path"] == PATH
+            and scope["method"] == "POST"
+            and not scope.get("root_path")
+            and self._eligible(scope)
+        )
+
+    async def _read_stream(self, scope: Scope, receive: Receive) -> tuple[Stream | None, list[Message]]:
+        """The body's valid stream and the messages read; ``None`` when the full app must answer."""
         messages: list[Message] = []
         chunks: list[bytes] = []
         size = 0
-        while True:
+        while True:  # the body, as sent; stop at the limit (the full app answers 413)
             message = await receive()
             messages.append(message)
             if message["type"] != "http.request":
-                return await self._fallback(scope, receive, send, messages)
+                return None, messages
             chunk = message.get("body", b"")
             size += len(chunk)
             if size > self.body_limit:
-                return await self._fallback(scope, receive, send, messages)
+                return None, messages
             chunks.append(chunk)
             if not message.get("more_body", False):
                 break
         body = chunks[0] if len(chunks) == 1 else b"".join(chunks)
-        # -- validation; any doubt: the full app answers (and explains)
+        # validation; any doubt: the full app answers (and explains)
         try:
             data = orjson.loads(body)
         except orjson.JSONDecodeError:
-            return await self._fallback(scope, receive, send, messages)
+            return None, messages
         if type(data) is not dict:
-            return await self._fallback(scope, receive, send, messages)
+            return None, messages
         try:
             stream = _validate(data)
         except ValidationError:
-            return await self._fallback(scope, receive, send, messages)
+            return None, messages
         if structural_errors(stream):
+            return None, messages
+        return stream, messages
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        exc = scope.pop(SOLVE_ERROR_SCOPE_KEY, None)
+        if exc is not None:  # the outer fast path's solve raised: answer as from the route
+            await self._answer_error(scope, receive, send, exc)
+            return
+        if scope.get(DECLINED_SCOPE_KEY) or not self.takes(scope):
+            await self.app(scope, receive, send)
+            return
+        stream, messages = await self._read_stream(scope, receive)
+        if stream is None:
             return await self._fallback(scope, receive, send, messages)
         scope["route"] = self.route
         # -- the solve, exactly as the route does it
         try:
-            result = await self.solver.solve(to_spec(stream))
-            content = orjson.dumps(response_dict(result, self.state.version))
+            content = await self._content(stream)
         except Exception as exc:
-            handler = self._handler(exc)
-            if handler is None:
-                raise  # a defect: the outermost error middleware answers 500, as from the route
-            response = await handler(Request(scope, receive), exc)
-            await response(scope, receive, send)
+            await self._answer_error(scope, receive, send, exc)
             return
         await send({
             "type": "http.response.start",
@@ -156,6 +179,61 @@ class EquilibriumFastPath:
             "headers": [(b"content-length", str(len(content)).encode("latin-1")), (b"content-type", b"application/json")],
         })
         await send({"type": "http.response.body", "body": content})
+
+    async def _content(self, stream: Stream) -> bytes:
+        result = await self.solver.solve(to_spec(stream))
+        return orjson.dumps(response_dict(result, self.state.version))
+
+    async def _answer_error(self, scope: Scope, receive: Receive, send: Send, exc: Exception) -> None:
+        handler = self._handler(exc)
+        if handler is None:
+            raise exc  # a defect: the outermost error middleware answers 500, as from the route
+        response = await handler(Request(scope, receive), exc)
+        await response(scope, receive, send)
+
+    async def serve(self, scope: Scope, receive: Receive, send: Send, full: ASGIApp) -> None:
+        """In front of the whole app (see :class:`service.app.ProtolyteAPI`): a request
+        :meth:`takes` is answered here with the request id, metrics and access line of
+        :class:`service.middleware.RequestContextMiddleware`; anything else, and an
+        exception from the solve, goes through ``full`` (every middleware, as without)."""
+        start = perf_counter()
+        stream, messages = await self._read_stream(scope, receive)
+        if stream is None:
+            scope[DECLINED_SCOPE_KEY] = True
+            return await self._fallback(scope, receive, send, messages, full)
+        rid = accept_request_id(request_id_header(scope))
+        scope[REQUEST_ID_SCOPE_KEY] = rid
+        scope["route"] = self.route
+        status = 500
+        recorded = handed = False
+        try:
+            try:
+                content = await self._content(stream)
+            except Exception as exc:  # answered by the full stack: handlers, 500 middleware, log
+                handed = True  # ... and counted there
+                scope[SOLVE_ERROR_SCOPE_KEY] = exc
+                scope[START_SCOPE_KEY] = start
+                await full(scope, receive, send)
+                return
+            status = 200
+            await send({
+                "type": "http.response.start",
+                "status": 200,
+                "headers": [
+                    (b"content-length", str(len(content)).encode("latin-1")),
+                    (b"content-type", b"application/json"),
+                    (b"x-request-id", rid.encode("latin-1")),
+                ],
+            })
+            recorded = True  # counted before the last byte leaves, as RequestContextMiddleware does
+            self.metrics.observe_request(self.route_path, "POST", 200, perf_counter() - start)
+            await send({"type": "http.response.body", "body": content})
+        finally:
+            if not handed:
+                elapsed = perf_counter() - start
+                if not recorded:  # e.g. cancelled: as RequestContextMiddleware's finally
+                    self.metrics.observe_request(self.route_path, "POST", status, elapsed)
+                log_request(rid, "POST", self.route_path, status, elapsed, None)
 
     def _handler(self, exc: Exception) -> Any:
         """The app's handler of ``exc`` as its exception middleware would pick it (not the 500 one)."""
@@ -167,8 +245,10 @@ class EquilibriumFastPath:
                 return handlers[cls]
         return None
 
-    async def _fallback(self, scope: Scope, receive: Receive, send: Send, messages: list[Message]) -> None:
-        """The full app, with the messages read so far replayed first."""
+    async def _fallback(
+        self, scope: Scope, receive: Receive, send: Send, messages: list[Message], app: ASGIApp | None = None
+    ) -> None:
+        """The full app (or ``app``), with the messages read so far replayed first."""
         pending = list(messages)
 
         async def replay() -> Message:
@@ -176,4 +256,4 @@ class EquilibriumFastPath:
                 return pending.pop(0)
             return await receive()
 
-        await self.app(scope, replay, send)
+        await (app or self.app)(scope, replay, send)

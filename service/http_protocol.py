@@ -64,6 +64,15 @@ class WriteCoalescingTransport:
         self._flush()
         self._transport.close()
 
+    def is_closing(self) -> bool:  # per request (uvicorn): not through __getattr__
+        return self._transport.is_closing()
+
+    def pause_reading(self) -> None:
+        self._transport.pause_reading()
+
+    def resume_reading(self) -> None:
+        self._transport.resume_reading()
+
     def abort(self) -> None:
         self._pending.clear()
         self._transport.abort()

@@ -6,16 +6,16 @@ Pure ASGI (no BaseHTTPMiddleware) so streaming and exceptions pass through uncha
 from __future__ import annotations
 
 import logging
+import os
 import re
 import time
-import uuid
 from typing import Any
 
 from starlette.datastructures import Headers
 from starlette.exceptions import HTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
-from service.logging import ACCESS_LOGGER
+from service.logging import ACCESS_LOGGER, write_access_line
 from service.metrics import Metrics
 from service.problems import REQUEST_ID_SCOPE_KEY, make_problem, problem_response
 
@@ -30,15 +30,51 @@ __all__ = [
 
 REQUEST_ID_HEADER = "X-Request-ID"
 BATCH_SIZE_SCOPE_KEY = "protolyte.batch_size"
+#: Set by the outer fast path (service.fastpath) when it hands a request to the full app:
+#: declined (answer it as usual), or its solve raised (the exception, the start time).
+DECLINED_SCOPE_KEY = "protolyte.fast_path_declined"
+SOLVE_ERROR_SCOPE_KEY = "protolyte.fast_path_error"
+START_SCOPE_KEY = "protolyte.fast_path_start"
 _ID_RE = re.compile(r"^[A-Za-z0-9._-]{1,64}$")
 _log = logging.getLogger(ACCESS_LOGGER)
+_ID_POOL_SIZE = 256
+_id_pool: list[str] = []
+_CLEAR_VERSION = ~((0xC000 << 48) | (0xF000 << 64))
+_SET_VERSION = (0x8000 << 48) | (0x4000 << 64)  # RFC 4122 variant, version 4 (as uuid.UUID(version=4))
+
+
+def _refill_ids() -> None:
+    """256 fresh UUID4 hex ids from ONE ``os.urandom`` call (uuid.uuid4 makes one per id)."""
+    raw = os.urandom(16 * _ID_POOL_SIZE)
+    _id_pool.extend(
+        "%032x" % ((int.from_bytes(raw[i : i + 16], "big") & _CLEAR_VERSION) | _SET_VERSION)
+        for i in range(0, len(raw), 16)
+    )
+
+
+os.register_at_fork(after_in_child=_id_pool.clear)  # forked workers never share ids
+
+
+def fresh_request_id() -> str:
+    """A fresh UUID4 hex (random bits from the OS, drawn 256 ids at a time)."""
+    if not _id_pool:
+        _refill_ids()
+    return _id_pool.pop()
 
 
 def accept_request_id(value: str | None) -> str:
     """The caller's id if it matches ``[A-Za-z0-9._-]{1,64}``, else a fresh UUID4 hex."""
     if value and _ID_RE.match(value):
         return value
-    return uuid.uuid4().hex
+    return fresh_request_id()
+
+
+def request_id_header(scope: Scope) -> str | None:
+    """The first ``X-Request-ID`` header (latin-1), as ``Headers(scope=scope).get`` finds it."""
+    for name, value in scope["headers"]:
+        if name == b"x-request-id":
+            return value.decode("latin-1")
+    return None
 
 
 def _route_template(scope: Scope) -> str:
@@ -58,8 +94,12 @@ class RequestContextMiddleware:
         if scope["type"] != "http":
             await self.app(scope, receive, send)
             return
-        start = time.perf_counter()
-        rid = accept_request_id(Headers(scope=scope).get(REQUEST_ID_HEADER))
+        if SOLVE_ERROR_SCOPE_KEY in scope:  # the outer fast path's request: its start and id
+            start = scope.pop(START_SCOPE_KEY)
+            rid = scope[REQUEST_ID_SCOPE_KEY]
+        else:
+            start = time.perf_counter()
+            rid = accept_request_id(request_id_header(scope))
         scope[REQUEST_ID_SCOPE_KEY] = rid
         status = 500
         recorded = False
@@ -87,15 +127,24 @@ class RequestContextMiddleware:
             await self.app(scope, receive, send_with_id)
         finally:
             elapsed = record() if not recorded else time.perf_counter() - start
-            extra: dict[str, Any] = {
-                "request_id": rid,
-                "method": str(scope.get("method", "")),
-                "route": _route_template(scope),
-                "status": status,
-                "duration_seconds": round(elapsed, 6),
-                "batch_size": scope.get(BATCH_SIZE_SCOPE_KEY),
-            }
-            _log.log(logging.ERROR if status >= 500 else logging.INFO, "request", extra=extra)
+            log_request(
+                rid, str(scope.get("method", "")), _route_template(scope), status, elapsed,
+                scope.get(BATCH_SIZE_SCOPE_KEY),
+            )
+
+
+def log_request(rid: str, method: str, route: str, status: int, elapsed: float, batch_size: Any) -> None:
+    """The access line of one request (ERROR for a 5xx status)."""
+    extra: dict[str, Any] = {
+        "request_id": rid,
+        "method": method,
+        "route": route,
+        "status": status,
+        "duration_seconds": round(elapsed, 6),
+        "batch_size": batch_size,
+    }
+    if status >= 500 or not write_access_line(_log, extra):
+        _log.log(logging.ERROR if status >= 500 else logging.INFO, "request", extra=extra)
 
 
 class BodyTooLarge(HTTPException):

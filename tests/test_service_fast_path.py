@@ -217,3 +217,35 @@ def test_a_solve_over_the_time_budget_is_the_same_prompt_503(make_client: AppFac
     _same(a, full.post(PATH, content=json.dumps(SIMPLE), headers=JSON))
     assert a.status_code == 503 and a.json()["type"].endswith("time-budget-exceeded")
     assert a.headers["retry-after"] == "1"
+
+
+@pytest.mark.parametrize("failing", [False, True], ids=["solved", "core-error"])
+def test_the_fast_path_logs_and_counts_once_with_the_request_id(make_client: AppFactory, failing: bool) -> None:
+    import io
+    import logging
+
+    from service.logging import JsonFormatter
+
+    core = _core_raising(SolveError("no root", "no_convergence")) if failing else None
+    client = make_client(core=core) if failing else make_client()
+    buffer = io.StringIO()
+    handler = logging.StreamHandler(buffer)
+    handler.setFormatter(JsonFormatter())
+    access = logging.getLogger("protolyte.access")
+    access.addHandler(handler)
+    try:
+        r = client.post(PATH, content=json.dumps(CREAMERY_STREAM), headers={**JSON, "X-Request-ID": "edge-1"})
+        fresh = client.post(PATH, content=json.dumps(CREAMERY_STREAM), headers=JSON)
+    finally:
+        access.removeHandler(handler)
+    status = 422 if failing else 200
+    assert r.status_code == status and r.headers["x-request-id"] == "edge-1"
+    assert len(fresh.headers["x-request-id"]) == 32
+    lines = [json.loads(line) for line in buffer.getvalue().splitlines()]
+    assert [(x["request_id"], x["route"], x["method"], x["status"]) for x in lines] == [
+        ("edge-1", PATH, "POST", status), (fresh.headers["x-request-id"], PATH, "POST", status)
+    ]
+    assert all(x["duration_seconds"] > 0 and "batch_size" not in x for x in lines)
+    metrics = client.get("/metrics").text
+    assert f'protolyte_http_requests_total{{method="POST",route="/v1/equilibrium",status="{status}"}} 2.0' in metrics
+    assert 'protolyte_http_request_duration_seconds_count{method="POST",route="/v1/equilibrium"} 2.0' in metrics

@@ -116,3 +116,54 @@ def test_one_json_access_line_per_request(client: TestClient, stream: dict[str, 
     assert line["method"] == "POST" and line["route"] == "/v1/equilibrium/batch"
     assert line["status"] == 200 and line["batch_size"] == 2
     assert line["duration_seconds"] > 0 and line["level"] == "info" and "timestamp" in line
+
+
+def test_fresh_request_ids_are_uuid4_hex_and_distinct() -> None:
+    import uuid
+
+    from service.middleware import fresh_request_id
+
+    ids = [fresh_request_id() for _ in range(600)]  # more than one pool refill
+    assert len(set(ids)) == len(ids)
+    for rid in ids[:300:7]:
+        u = uuid.UUID(rid)
+        assert u.hex == rid and u.version == 4 and u.variant == uuid.RFC_4122
+
+
+def test_direct_access_line_is_the_formatters_line() -> None:
+    import re
+
+    from service.logging import configure_logging, flush_access_lines, write_access_line
+
+    root = logging.getLogger()
+    saved = (list(root.handlers), root.level)
+    buffer = io.StringIO()
+    try:
+        for h in saved[0]:  # pytest's capture handlers: not the serving configuration
+            root.removeHandler(h)
+        configure_logging("INFO", buffer)
+        access = logging.getLogger("protolyte.access")
+        fields = {"request_id": "r-1", "method": "POST", "route": "/v1/equilibrium", "status": 200,
+                  "duration_seconds": 0.000123, "batch_size": None}
+        assert write_access_line(access, fields)
+        flush_access_lines()
+        access.info("request", extra=fields)
+        direct, logged = buffer.getvalue().splitlines()
+        ts = re.compile(r'"timestamp":"[^"]+"')
+        assert ts.sub("", direct) == ts.sub("", logged)
+        assert json.loads(direct)["timestamp"].endswith("+00:00")
+        # any other configuration: the caller logs through logging
+        extra = logging.StreamHandler(io.StringIO())
+        access.addHandler(extra)
+        try:
+            assert not write_access_line(access, fields)
+        finally:
+            access.removeHandler(extra)
+        configure_logging("WARNING", buffer)
+        assert not write_access_line(access, fields)
+    finally:
+        for h in list(root.handlers):
+            root.removeHandler(h)
+        for h in saved[0]:
+            root.addHandler(h)
+        root.setLevel(saved[1])
