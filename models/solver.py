@@ -229,17 +229,21 @@ class BalanceKernel:
         self, ph: NDArray, lg: NDArray | None, lh: NDArray, loh: NDArray, *, slot_means: bool = False
     ):
         """G, dG/dpH, the ionic strength [mol/kg] implied at ``ph``, and P, N [eq/kg];
-        with ``slot_means`` also each slot's mean charge z̄ and mean z² (N, K)."""
+        with ``slot_means`` also each slot's mean charge z̄ and mean z² (N, K).
+
+        ``ph``, ``lh``, ``loh`` may carry leading axes before the stream axis, e.g. (L, N)
+        with ``lg`` (L, N, K, P): L evaluations of the same streams in one pass (each row
+        computed exactly as alone)."""
         p = self.p
-        logw = np.subtract(np.multiply(ph[:, None, None], self.steps_ln10), self.cum_ln10)
+        logw = np.subtract(np.multiply(ph[..., None, None], self.steps_ln10), self.cum_ln10)
         if lg is not None:
             logw -= lg * LN10
         # Exponents stay within about ±150 for pH −1…15 and pK −5…25 (custom-system
         # limits), so no max-shift is needed here; models.fractions keeps it.
         w = np.exp(logw, out=logw)
-        m0 = np.einsum("nkp->nk", w)
-        m1 = np.einsum("nkp,p->nk", w, self.steps)
-        m2 = np.einsum("nkp,p->nk", w, self.steps_sq)
+        m0 = np.einsum("...kp->...k", w)
+        m1 = np.einsum("...kp,p->...k", w, self.steps)
+        m2 = np.einsum("...kp,p->...k", w, self.steps_sq)
         t = self.top
         if self.any_open:
             s = np.where(p.is_open, p.open_neutral / w[..., 0], p.total / m0)
@@ -255,23 +259,23 @@ class BalanceKernel:
             szp = w[..., 0] * np.maximum(t, 0.0)
             szpj = np.zeros_like(sz)
         elif self.any_pos:
-            szp = np.einsum("nkp,nkp->nk", w, self.zpos)
-            szpj = np.einsum("nkp,nkp->nk", w, self.zposj)
+            szp = np.einsum("...kp,...kp->...k", w, self.zpos)
+            szpj = np.einsum("...kp,...kp->...k", w, self.zposj)
         else:
             szp = szpj = np.zeros_like(sz)
         szn, sznj = szp - sz, szpj - szj
         m_h = np.exp(-LN10 * (ph + lh))
         m_oh = np.exp(LN10 * (ph - p.pkw - loh))
-        pos = self.strong_pos + m_h + (s * szp).sum(axis=1)
-        neg = self.strong_neg + m_oh + (s * szn).sum(axis=1)
-        dpos = LN10 * (-m_h + (s * (szpj - szp * jbar)).sum(axis=1))
-        dneg = LN10 * (m_oh + (s * (sznj - szn * jbar)).sum(axis=1))
+        pos = self.strong_pos + m_h + (s * szp).sum(axis=-1)
+        neg = self.strong_neg + m_oh + (s * szn).sum(axis=-1)
+        dpos = LN10 * (-m_h + (s * (szpj - szp * jbar)).sum(axis=-1))
+        dneg = LN10 * (m_oh + (s * (sznj - szn * jbar)).sum(axis=-1))
         with np.errstate(divide="ignore", invalid="ignore"):
             # P or N can underflow only for activity coefficients far outside any model
             # (ionic strength ≫ 3 mol/kg); such a stream ends as a failure, not a result.
             g = np.log(pos) - np.log(neg)
             dg = dpos / pos - dneg / neg
-        ionic = 0.5 * (p.strong_ionic + m_h + m_oh + (s * sz2).sum(axis=1))
+        ionic = 0.5 * (p.strong_ionic + m_h + m_oh + (s * sz2).sum(axis=-1))
         if slot_means:
             return g, dg, ionic, pos, neg, sz / m0, sz2 / m0
         return g, dg, ionic, pos, neg
