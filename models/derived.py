@@ -44,6 +44,9 @@ class Derived:
     conductivity_us_cm: list[float | None]
     strong_log_gamma: NDArray[np.float64]
     warnings: list[list[str]]
+    #: Molalities of system species (N, K, P), H+ and OH− at the solved state, as
+    #: ``models.solver.species_state`` gives them (shared with the result tables).
+    species: tuple[NDArray, NDArray, NDArray] | None = None
 
 
 def buffer_capacity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArray[np.float64]:
@@ -185,8 +188,9 @@ def compute(sv: Solved, db: ThermoDatabase) -> Derived:
         np.broadcast_to(z, (n, z.size)), np.broadcast_to(size, (n, z.size)),
         st.ionic_strength, p.a_dh, p.b_dh, p.activity_code,
     )
-    si, lsi = _calcite(sv, db, strong_lg)
-    return Derived(beta, alk, si, lsi, _conductivity(sv, db), strong_lg, warnings)
+    species = species_state(p, st.ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
+    si, lsi = _calcite(sv, db, strong_lg, species[0])
+    return Derived(beta, alk, si, lsi, _conductivity(sv, db, species), strong_lg, warnings, species)
 
 
 def _carbonate_slots(sv: Solved) -> NDArray[np.int_]:
@@ -195,7 +199,7 @@ def _carbonate_slots(sv: Solved) -> NDArray[np.int_]:
     )
 
 
-def _calcite(sv: Solved, db: ThermoDatabase, strong_lg: NDArray) -> tuple[list, list]:
+def _calcite(sv: Solved, db: ThermoDatabase, strong_lg: NDArray, m_all: NDArray) -> tuple[list, list]:
     asm, p, st = sv.assembled, sv.problem, sv.state
     n = st.ph.shape[0]
     none: list[float | None] = [None] * n
@@ -208,19 +212,16 @@ def _calcite(sv: Solved, db: ThermoDatabase, strong_lg: NDArray) -> tuple[list, 
     if not has.any():
         return none, list(none)
     idx = np.nonzero(has)[0]
-    sub = p.take(idx)
-    m, _, _ = species_state(sub, st.ph[idx], st.log_gamma_species[idx], st.log_gamma_h[idx], st.log_gamma_oh[idx])
     k = slot[idx]
-    rows = np.arange(idx.size)
-    m_hco3, m_co3 = m[rows, k, 1], m[rows, k, 2]
-    lg_co3 = st.log_gamma_species[idx][rows, k, 2]
+    m_hco3, m_co3 = m_all[idx, k, 1], m_all[idx, k, 2]
+    lg_co3 = st.log_gamma_species[idx, k, 2]
     t = asm.temperature_c[idx]
     pks = np.asarray(db.pksp_calcite(t), dtype=float)
     with np.errstate(divide="ignore"):
         si_v = np.log10(ca[idx]) + strong_lg[idx, ca_col] + np.log10(m_co3) + lg_co3 + pks
-        pk2 = sub.cum_pk[rows, k, 2] - sub.cum_pk[rows, k, 1]
+        pk2 = p.cum_pk[idx, k, 2] - p.cum_pk[idx, k, 1]
         rho = asm.density_kg_l[idx]
-        phs = langelier_ph_s(pk2, pks, ca[idx] * rho, m_hco3 * rho, st.ionic_strength[idx], sub.a_dh)
+        phs = langelier_ph_s(pk2, pks, ca[idx] * rho, m_hco3 * rho, st.ionic_strength[idx], p.a_dh[idx])
     lsi_v = st.ph[idx] - phs
     si, lsi = list(none), list(none)
     for r, j in enumerate(idx):
@@ -229,7 +230,7 @@ def _calcite(sv: Solved, db: ThermoDatabase, strong_lg: NDArray) -> tuple[list, 
     return si, lsi
 
 
-def _conductivity(sv: Solved, db: ThermoDatabase) -> list[float | None]:
+def _conductivity(sv: Solved, db: ThermoDatabase, species: tuple[NDArray, NDArray, NDArray]) -> list[float | None]:
     """κ(25 °C) estimate [µS/cm] = 1000 Σ λ_i |z_i| c_i with an Onsager-type correction
     λ_i = λ°_i − (B2/2·|z_i| + B1·|z_i|·λ°_i)·√I/(1 + √I) (coefficients of the Onsager
     limiting law for water at 25 °C, in the data file). Ions without a λ° are skipped."""
@@ -238,7 +239,7 @@ def _conductivity(sv: Solved, db: ThermoDatabase) -> list[float | None]:
     sqrt_i = np.sqrt(np.maximum(st.ionic_strength, 0.0))
     corr = sqrt_i / (1.0 + sqrt_i)
     rho = asm.density_kg_l
-    m, m_h, m_oh = species_state(p, st.ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
+    m, m_h, m_oh = species
 
     def term(lam0: float, z: float, c_mol_l: NDArray) -> NDArray:
         az = abs(z)
