@@ -123,28 +123,37 @@ def _charge_balance(p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, lo
     """F [eq/kg] at fixed γ: the first value of ``models.solver.balance``, computed alike."""
     m, m_h, m_oh = species_state(p, ph, lg, lh, loh)
     zm = p.charge * m
-    return p.strong_charge + m_h - m_oh + np.einsum("nkp->n", zm)
+    return p.strong_charge + m_h - m_oh + np.einsum("...kp->...", zm)
 
 
 def alkalinities_eq_kg(
-    p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, loh: NDArray
+    p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, loh: NDArray, m: NDArray | None = None
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """Total and phenolphthalein alkalinity [eq/kg]: ``alkalinity_eq_kg`` at the two end
     points, the closed sample and its balance at ``ph`` set up once; the phenolphthalein
-    value is 0 where ``ph`` is not above its end point (only the other streams are titrated)."""
-    m, _, _ = species_state(p, ph, lg, lh, loh)
+    value is 0 where ``ph`` is not above its end point (only the other streams are titrated).
+    ``m``: the species molalities at ``ph`` if already known. The balances at the sample's
+    pH and at the end points are one stacked evaluation (each row as alone)."""
+    if m is None:
+        m, _, _ = species_state(p, ph, lg, lh, loh)
     closed = replace(p, total=m.sum(axis=-1), is_open=np.zeros_like(p.is_open))
-    f_s = _charge_balance(closed, ph, lg, lh, loh)
-    total = _charge_balance(closed, np.full_like(ph, TOTAL_ENDPOINT_PH), lg, lh, loh) - f_s
-    phen = np.zeros_like(ph)
     above = ph > PHENOLPHTHALEIN_ENDPOINT_PH
-    if above.all():
-        phen[:] = _charge_balance(closed, np.full_like(ph, PHENOLPHTHALEIN_ENDPOINT_PH), lg, lh, loh) - f_s
-    elif above.any():
-        idx = np.nonzero(above)[0]
-        sub = closed.take(idx)
-        end = np.full(idx.size, PHENOLPHTHALEIN_ENDPOINT_PH)
-        phen[idx] = _charge_balance(sub, end, lg[idx], lh[idx], loh[idx]) - f_s[idx]
+    any_above = bool(above.any())
+    at = np.empty((3 if any_above else 2,) + ph.shape)
+    at[0] = ph
+    at[1] = TOTAL_ENDPOINT_PH
+    if any_above:
+        at[2] = PHENOLPHTHALEIN_ENDPOINT_PH
+    f = _charge_balance(closed, at, lg, lh, loh)
+    f_s = f[0]
+    total = f[1] - f_s
+    phen = np.zeros_like(ph)
+    if any_above:
+        if above.all():
+            phen[:] = f[2] - f_s
+        else:
+            idx = np.nonzero(above)[0]
+            phen[idx] = f[2][idx] - f_s[idx]
     return total, phen
 
 
@@ -165,7 +174,10 @@ def compute(sv: Solved, db: ThermoDatabase) -> Derived:
     ok = np.isfinite(st.ph)
     ph = np.where(ok, st.ph, 7.0)
     beta = buffer_capacity(p, ph, st.ionic_strength)
-    total, phen = alkalinities_eq_kg(p, ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
+    species = species_state(p, st.ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
+    total, phen = alkalinities_eq_kg(
+        p, ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh, species[0] if ok.all() else None
+    )
     rho = asm.density_kg_l
     eq_caco3 = formula_mass_g_mol("CaCO3") / 2.0
     warnings: list[list[str]] = [[] for _ in range(n)]
@@ -188,7 +200,6 @@ def compute(sv: Solved, db: ThermoDatabase) -> Derived:
         np.broadcast_to(z, (n, z.size)), np.broadcast_to(size, (n, z.size)),
         st.ionic_strength, p.a_dh, p.b_dh, p.activity_code,
     )
-    species = species_state(p, st.ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
     si, lsi = _calcite(sv, db, strong_lg, species[0])
     return Derived(beta, alk, si, lsi, _conductivity(sv, db, species), strong_lg, warnings, species)
 

@@ -131,15 +131,16 @@ def gammas(p: BalanceProblem, ionic: NDArray) -> tuple[NDArray, NDArray, NDArray
 def species_state(
     p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, loh: NDArray
 ) -> tuple[NDArray, NDArray, NDArray]:
-    """Molalities of system species (N, K, P), H+ and OH− [mol/kg] at ``ph``."""
-    logw = np.multiply(ph[:, None, None], np.arange(p.cum_pk.shape[-1]) * LN10) - p.cum_pk * LN10
+    """Molalities of system species (N, K, P), H+ and OH− [mol/kg] at ``ph``; ``ph`` may
+    carry leading axes, e.g. (L, N) for L evaluations of the same streams in one pass."""
+    logw = np.multiply(ph[..., None, None], np.arange(p.cum_pk.shape[-1]) * LN10) - p.cum_pk * LN10
     logw -= lg * LN10
     if np.any(p.is_open):
         rel = np.exp(logw - logw[..., :1])
         opened = p.open_neutral[..., None] * rel
     logw -= _max_last(logw)[..., None]
     w = np.exp(logw, out=logw)
-    out = w * (p.total / np.einsum("nkp->nk", w))[..., None]
+    out = w * (p.total / np.einsum("...kp->...k", w))[..., None]
     if np.any(p.is_open):
         out = np.where(p.is_open[..., None], opened, out)
     m_h = np.exp(-LN10 * (ph + lh))
