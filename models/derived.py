@@ -3,6 +3,7 @@ saturation, Langelier index and a conductivity estimate. All vectorized per batc
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING
 
@@ -182,10 +183,11 @@ def compute(sv: Solved, db: ThermoDatabase) -> Derived:
     eq_caco3 = formula_mass_g_mol("CaCO3") / 2.0
     warnings: list[list[str]] = [[] for _ in range(n)]
     alk: list[Alkalinity] = []
+    total_l, phen_l, rho_l = total.tolist(), phen.tolist(), rho.tolist()
     for j in range(n):
-        t_meq = max(float(total[j]), 0.0) * float(rho[j]) * 1e3
-        p_meq = max(float(phen[j]), 0.0) * float(rho[j]) * 1e3
-        if total[j] < 0:
+        t_meq = max(total_l[j], 0.0) * rho_l[j] * 1e3
+        p_meq = max(phen_l[j], 0.0) * rho_l[j] * 1e3
+        if total_l[j] < 0:
             warnings[j].append(
                 f"pH is below the {TOTAL_ENDPOINT_PH} end point: total alkalinity is 0 and the "
                 f"stream carries {-total[j] * rho[j] * 1e3:.4g} meq/L of mineral acidity"
@@ -205,9 +207,16 @@ def compute(sv: Solved, db: ThermoDatabase) -> Derived:
 
 
 def _carbonate_slots(sv: Solved) -> NDArray[np.int_]:
-    return np.array(
-        [next((k for k, s in enumerate(slots) if s.name == CARBONATE), -1) for slots in sv.assembled.slots]
-    )
+    """Per stream, the slot of its carbonate system or −1 (looked up once per layout)."""
+    seen: dict[tuple[int, ...], int] = {}
+    out = []
+    for slots in sv.assembled.slots:
+        key = tuple(map(id, slots))
+        k = seen.get(key)
+        if k is None:
+            k = seen[key] = next((k for k, s in enumerate(slots) if s.name == CARBONATE), -1)
+        out.append(k)
+    return np.array(out)
 
 
 def _calcite(sv: Solved, db: ThermoDatabase, strong_lg: NDArray, m_all: NDArray) -> tuple[list, list]:
@@ -235,9 +244,9 @@ def _calcite(sv: Solved, db: ThermoDatabase, strong_lg: NDArray, m_all: NDArray)
         phs = langelier_ph_s(pk2, pks, ca[idx] * rho, m_hco3 * rho, st.ionic_strength[idx], p.a_dh[idx])
     lsi_v = st.ph[idx] - phs
     si, lsi = list(none), list(none)
-    for r, j in enumerate(idx):
-        si[j] = float(si_v[r]) if np.isfinite(si_v[r]) else None
-        lsi[j] = float(lsi_v[r]) if np.isfinite(lsi_v[r]) else None
+    for j, a, b in zip(idx.tolist(), si_v.tolist(), lsi_v.tolist()):
+        si[j] = a if math.isfinite(a) else None
+        lsi[j] = b if math.isfinite(b) else None
     return si, lsi
 
 
