@@ -328,14 +328,14 @@ class _LoopKernel:
         self.kc[pad] = 0.0
         self.top = np.ascontiguousarray(p.charge[..., 0].T)
         self.two_top = 2.0 * self.top
-        self.top_rows = [k for k in range(self.top.shape[0]) if self.top[k].any()]
+        self.top_rows = np.flatnonzero(self.top.any(axis=1)).tolist()
         self.top_pos = np.maximum(self.top, 0.0)
         # Positive species beyond species 0 (a custom system with top charge ≥ +2).
         rest = p.charge[..., 1:]
         self.zpos_rest = (
             np.ascontiguousarray(np.maximum(rest, 0.0).transpose(2, 1, 0)) if (rest > 0).any() else None
         )
-        self.pos_rows = [k for k in range(self.top.shape[0]) if self.top_pos[k].any()]
+        self.pos_rows = np.flatnonzero(self.top_pos.any(axis=1)).tolist()
         self.any_open = bool(p.is_open.any())
         self.is_open = np.ascontiguousarray(p.is_open.T)
         if self.any_open:
@@ -642,8 +642,11 @@ def _solve_slice(
     the loop's) drop converged streams once they are a sizeable part of them.
     """
     n = p.n_streams
-    codes = np.unique(p.activity_code)
-    code = int(codes[0]) if codes.size == 1 else None
+    if n and (p.activity_code == p.activity_code[0]).all():
+        code = int(p.activity_code[0])
+    else:
+        codes = np.unique(p.activity_code)
+        code = int(codes[0]) if codes.size == 1 else None
     full = _LoopKernel(p, code)
     ph = np.full(n, 7.0) if ph_guess is None else np.clip(ph_guess, PH_MIN + 0.01, PH_MAX - 0.01)
     ideal = p.activity_code == IDEAL
@@ -657,68 +660,70 @@ def _solve_slice(
     live = np.ones(n, dtype=bool)
     n_live = n
     last = np.full(n, np.inf)
-    for it in range(MAX_NEWTON):
-        if n_live < COMPACT_BELOW * rows.size:
-            keep = np.flatnonzero(live)
-            rows, k, is_ideal = rows[keep], k.take(keep), is_ideal[keep]
-            x, cur, lo, hi, last = x[keep], cur[keep], lo[keep], hi[keep], last[keep]
-            live = np.ones(keep.size, dtype=bool)
-        g, dg, new_i, di_dph, _, _, _, _ = k.evaluate(x, cur)
-        above = g > 0
-        lo = np.where(above, x, lo)
-        hi = np.where(above, hi, x)
-        with np.errstate(divide="ignore", invalid="ignore"):
+    # One floating-point error state for the loop (entering one costs as much as a few
+    # small array operations): a division by dG = 0 or a NaN/inf step is handled as data.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for it in range(MAX_NEWTON):
+            if n_live < COMPACT_BELOW * rows.size:
+                keep = np.flatnonzero(live)
+                rows, k, is_ideal = rows[keep], k.take(keep), is_ideal[keep]
+                x, cur, lo, hi, last = x[keep], cur[keep], lo[keep], hi[keep], last[keep]
+                live = np.ones(keep.size, dtype=bool)
+            g, dg, new_i, di_dph, _, _, _, _ = k.evaluate(x, cur)
+            above = g > 0
+            lo = np.where(above, x, lo)
+            hi = np.where(above, hi, x)
             step = -g / dg
-        newton = x + step
-        # Strict: a Newton step of ~0 from a bracket end is converged, not a reason to bisect.
-        bad = ~np.isfinite(newton) | (newton < lo) | (newton > hi)
-        # Also bisect a Newton step that turns back by more than half the step before: on
-        # an S-shaped G, Newton can cycle between two points inside a bracket that the
-        # ionic-strength updates keep from shrinking. Near the root steps shrink fast.
-        with np.errstate(invalid="ignore"):  # 0 × inf on the first step is no turn
+            newton = x + step
+            # Strict: a Newton step of ~0 from a bracket end is converged, not a reason to bisect.
+            bad = ~np.isfinite(newton) | (newton < lo) | (newton > hi)
+            # Also bisect a Newton step that turns back by more than half the step before: on
+            # an S-shaped G, Newton can cycle between two points inside a bracket that the
+            # ionic-strength updates keep from shrinking. Near the root steps shrink fast.
+            # (0 × inf on the first step is no turn.)
             bad |= (step * last < 0) & (np.abs(step) > np.maximum(0.5 * np.abs(last), 1e-6))
-        nxt = np.where(bad, 0.5 * (lo + hi), newton)
-        last = nxt - x
-        i_ok = is_ideal | (np.abs(new_i - cur) <= I_ATOL + I_RTOL * new_i)
-        small = np.abs(step) < PH_TOL  # False for NaN and ±inf
-        width = hi - lo
-        conv = live & i_ok & (small | (width < PH_TOL))
-        if conv.any():
-            c = np.flatnonzero(conv)
-            r = rows[c]
-            ph[r] = np.where(small[c] & ~bad[c], newton[c], x[c])
-            # A converged stream keeps the ionic strength its pH was solved with, so the
-            # reported residual is that of the pH returned.
-            ionic[r] = cur[c]
-            iters[r] = it + 1
-            done[r] = True
-            live[c] = False
-            n_live -= c.size
-            if n_live == 0:
-                break
-        if it < JOINT_STEPS:
-            # The ionic strength at the next pH, to first order, kept within a factor 2
-            # of the value at this pH (the pH step can be several units early on).
-            update_i = ~i_ok
-            i_next = np.clip(new_i + di_dph * (nxt - x), 0.5 * new_i, 2.0 * new_i)
-            i_next = np.where(np.isfinite(i_next), i_next, new_i)
+            nxt = np.where(bad, 0.5 * (lo + hi), newton)
+            last = nxt - x
+            i_ok = is_ideal | (np.abs(new_i - cur) <= I_ATOL + I_RTOL * new_i)
+            small = np.abs(step) < PH_TOL  # False for NaN and ±inf
+            width = hi - lo
+            conv = live & i_ok & (small | (width < PH_TOL))
+            if conv.any():
+                c = np.flatnonzero(conv)
+                r = rows[c]
+                ph[r] = np.where(small[c] & ~bad[c], newton[c], x[c])
+                # A converged stream keeps the ionic strength its pH was solved with, so the
+                # reported residual is that of the pH returned.
+                ionic[r] = cur[c]
+                iters[r] = it + 1
+                done[r] = True
+                live[c] = False
+                n_live -= c.size
+                if n_live == 0:
+                    break
+            if it < JOINT_STEPS:
+                # The ionic strength at the next pH, to first order, kept within a factor 2
+                # of the value at this pH (the pH step can be several units early on).
+                update_i = ~i_ok
+                i_next = np.minimum(np.maximum(new_i + di_dph * (nxt - x), 0.5 * new_i), 2.0 * new_i)
+                i_next = np.where(np.isfinite(i_next), i_next, new_i)
+            else:
+                # Nested mode: hold I until the pH has settled for it.
+                update_i = ~i_ok & ((np.abs(step) < 1e-7) | (width < 1e-7))
+                i_next = new_i
+            # The root moves with γ by about |Δlog γ| ≤ z²·A·|Δ√I| (z² ≤ 9 here, A < 0.61):
+            # widen the bracket by a safe multiple of that, not more, so it still shrinks.
+            shift = 10.0 * k.a_dh * np.abs(np.sqrt(i_next) - np.sqrt(cur)) + 1e-9
+            if it >= JOINT_STEPS:
+                shift += 1e-6
+            margin = np.where(update_i, shift, 0.0)
+            lo = np.maximum(PH_MIN, np.minimum(lo, nxt) - margin)
+            hi = np.minimum(PH_MAX, np.maximum(hi, nxt) + margin)
+            x = nxt
+            cur = np.where(update_i, i_next, cur)
         else:
-            # Nested mode: hold I until the pH has settled for it.
-            update_i = ~i_ok & ((np.abs(step) < 1e-7) | (width < 1e-7))
-            i_next = new_i
-        # The root moves with γ by about |Δlog γ| ≤ z²·A·|Δ√I| (z² ≤ 9 here, A < 0.61):
-        # widen the bracket by a safe multiple of that, not more, so it still shrinks.
-        shift = 10.0 * k.a_dh * np.abs(np.sqrt(i_next) - np.sqrt(cur)) + 1e-9
-        if it >= JOINT_STEPS:
-            shift += 1e-6
-        margin = np.where(update_i, shift, 0.0)
-        lo = np.maximum(PH_MIN, np.minimum(lo, nxt) - margin)
-        hi = np.minimum(PH_MAX, np.maximum(hi, nxt) + margin)
-        x = nxt
-        cur = np.where(update_i, i_next, cur)
-    else:
-        ph[rows[live]] = x[live]
-        ionic[rows[live]] = cur[live]
+            ph[rows[live]] = x[live]
+            ionic[rows[live]] = cur[live]
     _, _, ionic_actual, _, pos, neg, lh, loh = full.evaluate(ph, ionic, slope=False)
     f, scale = pos - neg, pos + neg
     lg = _log_gamma_species(p, code, ionic)
