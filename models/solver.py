@@ -120,6 +120,13 @@ class BalanceState:
     status: NDArray[np.int_]
 
 
+def _single_code(codes: NDArray[np.int_]) -> int | None:
+    """The activity model code shared by every stream, or None (mixed, or no stream)."""
+    if codes.size and (codes == codes[0]).all():
+        return int(codes[0])
+    return None
+
+
 def gammas(p: BalanceProblem, ionic: NDArray) -> tuple[NDArray, NDArray, NDArray]:
     lg = log_gamma(p.charge, p.ion_size, ionic, p.a_dh, p.b_dh, p.activity_code)
     one = np.ones_like(ionic)
@@ -200,8 +207,7 @@ class BalanceKernel:
         self.any_open = bool(p.is_open.any())
         self.strong_pos = np.maximum(p.strong_charge, 0.0)
         self.strong_neg = np.maximum(-p.strong_charge, 0.0)
-        codes = np.unique(p.activity_code)
-        self.code = int(codes[0]) if codes.size == 1 else None
+        self.code = _single_code(p.activity_code)
 
     def take(self, idx: NDArray[np.int_]) -> BalanceKernel:
         k = object.__new__(BalanceKernel)
@@ -642,11 +648,7 @@ def _solve_slice(
     the loop's) drop converged streams once they are a sizeable part of them.
     """
     n = p.n_streams
-    if n and (p.activity_code == p.activity_code[0]).all():
-        code = int(p.activity_code[0])
-    else:
-        codes = np.unique(p.activity_code)
-        code = int(codes[0]) if codes.size == 1 else None
+    code = _single_code(p.activity_code)
     full = _LoopKernel(p, code)
     ph = np.full(n, 7.0) if ph_guess is None else np.clip(ph_guess, PH_MIN + 0.01, PH_MAX - 0.01)
     ideal = p.activity_code == IDEAL
