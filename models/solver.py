@@ -438,7 +438,7 @@ class _LoopKernel:
         """G = ln P − ln N, dG/dpH, the ionic strength implied at ``ph`` with γ(``ionic``),
         its derivative dI/dpH at fixed γ (None unless ``slope``), P, N [eq/kg] and the
         log10 γ of H+ and OH−."""
-        if ph.shape[0] <= STACKED_STREAMS and self.n_sp > 1 and not self.any_open and self.zpos_rest is None:
+        if ph.shape[0] <= STACKED_STREAMS and self.n_sp >= 4 and not self.any_open and self.zpos_rest is None:
             return self._evaluate_stacked(ph, ionic, slope)
         weights, lh, loh = self._weights(ph, ionic)
         m0 = m1 = m2 = m3 = szp = szpj = None
@@ -600,8 +600,10 @@ class _LoopKernel:
 #: slots is 384 KiB; 5 % faster than 16 384 on the benchmark (both models).
 SLICE_STREAMS = 8_192
 #: Up to this many streams, ``_LoopKernel`` evaluates with stacked arrays (fewer numpy
-#: calls, the same results); larger batches keep the per-species loop (less memory).
-STACKED_STREAMS = 1_024
+#: calls, the same results) when some system has three or more steps (P ≥ 4: with two
+#: steps the per-species loop is as short); larger batches keep the per-species loop
+#: (no gain measured at 100 streams).
+STACKED_STREAMS = 256
 #: The working set is compacted when fewer than this fraction of it is still iterating.
 COMPACT_BELOW = 0.6
 

@@ -188,7 +188,7 @@ def test_stacked_small_batch_evaluation_is_bit_identical_to_the_species_loop(
     assert not p.is_open.any()
     codes = np.unique(p.activity_code)
     kern = _LoopKernel(p, int(codes[0]) if codes.size == 1 else None)
-    assert kern.zpos_rest is None and kern.n_sp > 1
+    assert kern.zpos_rest is None and kern.n_sp >= 4
     n = p.n_streams
     for ph0 in (-0.5, 2.0, 6.3, 9.8, 14.5):
         ph = ph0 + np.linspace(0.0, 0.4, n)
