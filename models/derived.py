@@ -3,6 +3,7 @@ saturation, Langelier index and a conductivity estimate. All vectorized per batc
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING
 
@@ -44,6 +45,9 @@ class Derived:
     conductivity_us_cm: list[float | None]
     strong_log_gamma: NDArray[np.float64]
     warnings: list[list[str]]
+    #: Molalities of system species (N, K, P), H+ and OH− at the solved state, as
+    #: ``models.solver.species_state`` gives them (shared with the result tables).
+    species: tuple[NDArray, NDArray, NDArray] | None = None
 
 
 def buffer_capacity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArray[np.float64]:
@@ -83,16 +87,18 @@ def _beta_with_activity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArr
     d_i = np.maximum(1e-6 * ionic, 1e-12)
     lo_i = np.maximum(ionic - d_i, 0.0)
     kern = BalanceKernel(p)
-    x, psi = [], []
-    at_sample = kern.log_gammas(ionic)  # the two pH steps share the sample's γ
-    for at_ph, gam in (
-        (ph + BETA_STEP_PH, at_sample), (ph - BETA_STEP_PH, at_sample),
-        (ph, kern.log_gammas(ionic + d_i)), (ph, kern.log_gammas(lo_i)),
-    ):
-        lg, lh, loh = gam
-        _, _, psi_k, pos, neg = kern.evaluate(at_ph, lg, lh, loh)
-        x.append(neg - pos)
-        psi.append(psi_k)
+    # The four evaluations in one stacked pass (L = 4 rows of the same streams); the
+    # two pH steps share the sample's γ.
+    lg0, lh0, loh0 = kern.log_gammas(ionic)
+    lg_up, lh_up, loh_up = kern.log_gammas(ionic + d_i)
+    lg_dn, lh_dn, loh_dn = kern.log_gammas(lo_i)
+    _, _, psi, pos, neg = kern.evaluate(
+        np.stack((ph + BETA_STEP_PH, ph - BETA_STEP_PH, ph, ph)),
+        np.stack((lg0, lg0, lg_up, lg_dn)),
+        np.stack((lh0, lh0, lh_up, lh_dn)),
+        np.stack((loh0, loh0, loh_up, loh_dn)),
+    )
+    x = neg - pos
     span_i = ionic + d_i - lo_i
     x_p = (x[0] - x[1]) / (2 * BETA_STEP_PH)
     psi_p = (psi[0] - psi[1]) / (2 * BETA_STEP_PH)
@@ -118,28 +124,37 @@ def _charge_balance(p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, lo
     """F [eq/kg] at fixed γ: the first value of ``models.solver.balance``, computed alike."""
     m, m_h, m_oh = species_state(p, ph, lg, lh, loh)
     zm = p.charge * m
-    return p.strong_charge + m_h - m_oh + np.einsum("nkp->n", zm)
+    return p.strong_charge + m_h - m_oh + np.einsum("...kp->...", zm)
 
 
 def alkalinities_eq_kg(
-    p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, loh: NDArray
+    p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, loh: NDArray, m: NDArray | None = None
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """Total and phenolphthalein alkalinity [eq/kg]: ``alkalinity_eq_kg`` at the two end
     points, the closed sample and its balance at ``ph`` set up once; the phenolphthalein
-    value is 0 where ``ph`` is not above its end point (only the other streams are titrated)."""
-    m, _, _ = species_state(p, ph, lg, lh, loh)
+    value is 0 where ``ph`` is not above its end point (only the other streams are titrated).
+    ``m``: the species molalities at ``ph`` if already known. The balances at the sample's
+    pH and at the end points are one stacked evaluation (each row as alone)."""
+    if m is None:
+        m, _, _ = species_state(p, ph, lg, lh, loh)
     closed = replace(p, total=m.sum(axis=-1), is_open=np.zeros_like(p.is_open))
-    f_s = _charge_balance(closed, ph, lg, lh, loh)
-    total = _charge_balance(closed, np.full_like(ph, TOTAL_ENDPOINT_PH), lg, lh, loh) - f_s
-    phen = np.zeros_like(ph)
     above = ph > PHENOLPHTHALEIN_ENDPOINT_PH
-    if above.all():
-        phen[:] = _charge_balance(closed, np.full_like(ph, PHENOLPHTHALEIN_ENDPOINT_PH), lg, lh, loh) - f_s
-    elif above.any():
-        idx = np.nonzero(above)[0]
-        sub = closed.take(idx)
-        end = np.full(idx.size, PHENOLPHTHALEIN_ENDPOINT_PH)
-        phen[idx] = _charge_balance(sub, end, lg[idx], lh[idx], loh[idx]) - f_s[idx]
+    any_above = bool(above.any())
+    at = np.empty((3 if any_above else 2,) + ph.shape)
+    at[0] = ph
+    at[1] = TOTAL_ENDPOINT_PH
+    if any_above:
+        at[2] = PHENOLPHTHALEIN_ENDPOINT_PH
+    f = _charge_balance(closed, at, lg, lh, loh)
+    f_s = f[0]
+    total = f[1] - f_s
+    phen = np.zeros_like(ph)
+    if any_above:
+        if above.all():
+            phen[:] = f[2] - f_s
+        else:
+            idx = np.nonzero(above)[0]
+            phen[idx] = f[2][idx] - f_s[idx]
     return total, phen
 
 
@@ -160,15 +175,19 @@ def compute(sv: Solved, db: ThermoDatabase) -> Derived:
     ok = np.isfinite(st.ph)
     ph = np.where(ok, st.ph, 7.0)
     beta = buffer_capacity(p, ph, st.ionic_strength)
-    total, phen = alkalinities_eq_kg(p, ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
+    species = species_state(p, st.ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
+    total, phen = alkalinities_eq_kg(
+        p, ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh, species[0] if ok.all() else None
+    )
     rho = asm.density_kg_l
     eq_caco3 = formula_mass_g_mol("CaCO3") / 2.0
     warnings: list[list[str]] = [[] for _ in range(n)]
     alk: list[Alkalinity] = []
+    total_l, phen_l, rho_l = total.tolist(), phen.tolist(), rho.tolist()
     for j in range(n):
-        t_meq = max(float(total[j]), 0.0) * float(rho[j]) * 1e3
-        p_meq = max(float(phen[j]), 0.0) * float(rho[j]) * 1e3
-        if total[j] < 0:
+        t_meq = max(total_l[j], 0.0) * rho_l[j] * 1e3
+        p_meq = max(phen_l[j], 0.0) * rho_l[j] * 1e3
+        if total_l[j] < 0:
             warnings[j].append(
                 f"pH is below the {TOTAL_ENDPOINT_PH} end point: total alkalinity is 0 and the "
                 f"stream carries {-total[j] * rho[j] * 1e3:.4g} meq/L of mineral acidity"
@@ -183,17 +202,24 @@ def compute(sv: Solved, db: ThermoDatabase) -> Derived:
         np.broadcast_to(z, (n, z.size)), np.broadcast_to(size, (n, z.size)),
         st.ionic_strength, p.a_dh, p.b_dh, p.activity_code,
     )
-    si, lsi = _calcite(sv, db, strong_lg)
-    return Derived(beta, alk, si, lsi, _conductivity(sv, db), strong_lg, warnings)
+    si, lsi = _calcite(sv, db, strong_lg, species[0])
+    return Derived(beta, alk, si, lsi, _conductivity(sv, db, species), strong_lg, warnings, species)
 
 
 def _carbonate_slots(sv: Solved) -> NDArray[np.int_]:
-    return np.array(
-        [next((k for k, s in enumerate(slots) if s.name == CARBONATE), -1) for slots in sv.assembled.slots]
-    )
+    """Per stream, the slot of its carbonate system or −1 (looked up once per layout)."""
+    seen: dict[tuple[int, ...], int] = {}
+    out = []
+    for slots in sv.assembled.slots:
+        key = tuple(map(id, slots))
+        k = seen.get(key)
+        if k is None:
+            k = seen[key] = next((k for k, s in enumerate(slots) if s.name == CARBONATE), -1)
+        out.append(k)
+    return np.array(out)
 
 
-def _calcite(sv: Solved, db: ThermoDatabase, strong_lg: NDArray) -> tuple[list, list]:
+def _calcite(sv: Solved, db: ThermoDatabase, strong_lg: NDArray, m_all: NDArray) -> tuple[list, list]:
     asm, p, st = sv.assembled, sv.problem, sv.state
     n = st.ph.shape[0]
     none: list[float | None] = [None] * n
@@ -206,28 +232,25 @@ def _calcite(sv: Solved, db: ThermoDatabase, strong_lg: NDArray) -> tuple[list, 
     if not has.any():
         return none, list(none)
     idx = np.nonzero(has)[0]
-    sub = p.take(idx)
-    m, _, _ = species_state(sub, st.ph[idx], st.log_gamma_species[idx], st.log_gamma_h[idx], st.log_gamma_oh[idx])
     k = slot[idx]
-    rows = np.arange(idx.size)
-    m_hco3, m_co3 = m[rows, k, 1], m[rows, k, 2]
-    lg_co3 = st.log_gamma_species[idx][rows, k, 2]
+    m_hco3, m_co3 = m_all[idx, k, 1], m_all[idx, k, 2]
+    lg_co3 = st.log_gamma_species[idx, k, 2]
     t = asm.temperature_c[idx]
     pks = np.asarray(db.pksp_calcite(t), dtype=float)
     with np.errstate(divide="ignore"):
         si_v = np.log10(ca[idx]) + strong_lg[idx, ca_col] + np.log10(m_co3) + lg_co3 + pks
-        pk2 = sub.cum_pk[rows, k, 2] - sub.cum_pk[rows, k, 1]
+        pk2 = p.cum_pk[idx, k, 2] - p.cum_pk[idx, k, 1]
         rho = asm.density_kg_l[idx]
-        phs = langelier_ph_s(pk2, pks, ca[idx] * rho, m_hco3 * rho, st.ionic_strength[idx], sub.a_dh)
+        phs = langelier_ph_s(pk2, pks, ca[idx] * rho, m_hco3 * rho, st.ionic_strength[idx], p.a_dh[idx])
     lsi_v = st.ph[idx] - phs
     si, lsi = list(none), list(none)
-    for r, j in enumerate(idx):
-        si[j] = float(si_v[r]) if np.isfinite(si_v[r]) else None
-        lsi[j] = float(lsi_v[r]) if np.isfinite(lsi_v[r]) else None
+    for j, a, b in zip(idx.tolist(), si_v.tolist(), lsi_v.tolist()):
+        si[j] = a if math.isfinite(a) else None
+        lsi[j] = b if math.isfinite(b) else None
     return si, lsi
 
 
-def _conductivity(sv: Solved, db: ThermoDatabase) -> list[float | None]:
+def _conductivity(sv: Solved, db: ThermoDatabase, species: tuple[NDArray, NDArray, NDArray]) -> list[float | None]:
     """κ(25 °C) estimate [µS/cm] = 1000 Σ λ_i |z_i| c_i with an Onsager-type correction
     λ_i = λ°_i − (B2/2·|z_i| + B1·|z_i|·λ°_i)·√I/(1 + √I) (coefficients of the Onsager
     limiting law for water at 25 °C, in the data file). Ions without a λ° are skipped."""
@@ -236,7 +259,7 @@ def _conductivity(sv: Solved, db: ThermoDatabase) -> list[float | None]:
     sqrt_i = np.sqrt(np.maximum(st.ionic_strength, 0.0))
     corr = sqrt_i / (1.0 + sqrt_i)
     rho = asm.density_kg_l
-    m, m_h, m_oh = species_state(p, st.ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
+    m, m_h, m_oh = species
 
     def term(lam0: float, z: float, c_mol_l: NDArray) -> NDArray:
         az = abs(z)

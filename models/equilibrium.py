@@ -236,7 +236,10 @@ class _Tables:
     @staticmethod
     def of(sv: Solved, ex: derived.Derived) -> _Tables:
         st, p, rho = sv.state, sv.problem, sv.assembled.density_kg_l
-        m, m_h, m_oh = species_state(p, st.ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
+        if ex.species is not None:
+            m, m_h, m_oh = ex.species
+        else:
+            m, m_h, m_oh = species_state(p, st.ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
         tot = m.sum(axis=-1)
         with np.errstate(invalid="ignore", divide="ignore"):
             frac = np.where(tot[..., None] > 0, m / tot[..., None], 0.0)

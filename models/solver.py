@@ -120,6 +120,13 @@ class BalanceState:
     status: NDArray[np.int_]
 
 
+def _single_code(codes: NDArray[np.int_]) -> int | None:
+    """The activity model code shared by every stream, or None (mixed, or no stream)."""
+    if codes.size and (codes == codes[0]).all():
+        return int(codes[0])
+    return None
+
+
 def gammas(p: BalanceProblem, ionic: NDArray) -> tuple[NDArray, NDArray, NDArray]:
     lg = log_gamma(p.charge, p.ion_size, ionic, p.a_dh, p.b_dh, p.activity_code)
     one = np.ones_like(ionic)
@@ -131,15 +138,16 @@ def gammas(p: BalanceProblem, ionic: NDArray) -> tuple[NDArray, NDArray, NDArray
 def species_state(
     p: BalanceProblem, ph: NDArray, lg: NDArray, lh: NDArray, loh: NDArray
 ) -> tuple[NDArray, NDArray, NDArray]:
-    """Molalities of system species (N, K, P), H+ and OH− [mol/kg] at ``ph``."""
-    logw = np.multiply(ph[:, None, None], np.arange(p.cum_pk.shape[-1]) * LN10) - p.cum_pk * LN10
+    """Molalities of system species (N, K, P), H+ and OH− [mol/kg] at ``ph``; ``ph`` may
+    carry leading axes, e.g. (L, N) for L evaluations of the same streams in one pass."""
+    logw = np.multiply(ph[..., None, None], np.arange(p.cum_pk.shape[-1]) * LN10) - p.cum_pk * LN10
     logw -= lg * LN10
     if np.any(p.is_open):
         rel = np.exp(logw - logw[..., :1])
         opened = p.open_neutral[..., None] * rel
     logw -= _max_last(logw)[..., None]
     w = np.exp(logw, out=logw)
-    out = w * (p.total / np.einsum("nkp->nk", w))[..., None]
+    out = w * (p.total / np.einsum("...kp->...k", w))[..., None]
     if np.any(p.is_open):
         out = np.where(p.is_open[..., None], opened, out)
     m_h = np.exp(-LN10 * (ph + lh))
@@ -199,8 +207,7 @@ class BalanceKernel:
         self.any_open = bool(p.is_open.any())
         self.strong_pos = np.maximum(p.strong_charge, 0.0)
         self.strong_neg = np.maximum(-p.strong_charge, 0.0)
-        codes = np.unique(p.activity_code)
-        self.code = int(codes[0]) if codes.size == 1 else None
+        self.code = _single_code(p.activity_code)
 
     def take(self, idx: NDArray[np.int_]) -> BalanceKernel:
         k = object.__new__(BalanceKernel)
@@ -229,17 +236,21 @@ class BalanceKernel:
         self, ph: NDArray, lg: NDArray | None, lh: NDArray, loh: NDArray, *, slot_means: bool = False
     ):
         """G, dG/dpH, the ionic strength [mol/kg] implied at ``ph``, and P, N [eq/kg];
-        with ``slot_means`` also each slot's mean charge z̄ and mean z² (N, K)."""
+        with ``slot_means`` also each slot's mean charge z̄ and mean z² (N, K).
+
+        ``ph``, ``lh``, ``loh`` may carry leading axes before the stream axis, e.g. (L, N)
+        with ``lg`` (L, N, K, P): L evaluations of the same streams in one pass (each row
+        computed exactly as alone)."""
         p = self.p
-        logw = np.subtract(np.multiply(ph[:, None, None], self.steps_ln10), self.cum_ln10)
+        logw = np.subtract(np.multiply(ph[..., None, None], self.steps_ln10), self.cum_ln10)
         if lg is not None:
             logw -= lg * LN10
         # Exponents stay within about ±150 for pH −1…15 and pK −5…25 (custom-system
         # limits), so no max-shift is needed here; models.fractions keeps it.
         w = np.exp(logw, out=logw)
-        m0 = np.einsum("nkp->nk", w)
-        m1 = np.einsum("nkp,p->nk", w, self.steps)
-        m2 = np.einsum("nkp,p->nk", w, self.steps_sq)
+        m0 = np.einsum("...kp->...k", w)
+        m1 = np.einsum("...kp,p->...k", w, self.steps)
+        m2 = np.einsum("...kp,p->...k", w, self.steps_sq)
         t = self.top
         if self.any_open:
             s = np.where(p.is_open, p.open_neutral / w[..., 0], p.total / m0)
@@ -255,23 +266,23 @@ class BalanceKernel:
             szp = w[..., 0] * np.maximum(t, 0.0)
             szpj = np.zeros_like(sz)
         elif self.any_pos:
-            szp = np.einsum("nkp,nkp->nk", w, self.zpos)
-            szpj = np.einsum("nkp,nkp->nk", w, self.zposj)
+            szp = np.einsum("...kp,...kp->...k", w, self.zpos)
+            szpj = np.einsum("...kp,...kp->...k", w, self.zposj)
         else:
             szp = szpj = np.zeros_like(sz)
         szn, sznj = szp - sz, szpj - szj
         m_h = np.exp(-LN10 * (ph + lh))
         m_oh = np.exp(LN10 * (ph - p.pkw - loh))
-        pos = self.strong_pos + m_h + (s * szp).sum(axis=1)
-        neg = self.strong_neg + m_oh + (s * szn).sum(axis=1)
-        dpos = LN10 * (-m_h + (s * (szpj - szp * jbar)).sum(axis=1))
-        dneg = LN10 * (m_oh + (s * (sznj - szn * jbar)).sum(axis=1))
+        pos = self.strong_pos + m_h + (s * szp).sum(axis=-1)
+        neg = self.strong_neg + m_oh + (s * szn).sum(axis=-1)
+        dpos = LN10 * (-m_h + (s * (szpj - szp * jbar)).sum(axis=-1))
+        dneg = LN10 * (m_oh + (s * (sznj - szn * jbar)).sum(axis=-1))
         with np.errstate(divide="ignore", invalid="ignore"):
             # P or N can underflow only for activity coefficients far outside any model
             # (ionic strength ≫ 3 mol/kg); such a stream ends as a failure, not a result.
             g = np.log(pos) - np.log(neg)
             dg = dpos / pos - dneg / neg
-        ionic = 0.5 * (p.strong_ionic + m_h + m_oh + (s * sz2).sum(axis=1))
+        ionic = 0.5 * (p.strong_ionic + m_h + m_oh + (s * sz2).sum(axis=-1))
         if slot_means:
             return g, dg, ionic, pos, neg, sz / m0, sz2 / m0
         return g, dg, ionic, pos, neg
@@ -312,6 +323,9 @@ class _LoopKernel:
     def __init__(self, p: BalanceProblem, code: int | None) -> None:
         self.p, self.code = p, code
         self.n_sp = p.charge.shape[2]
+        self.jj = np.arange(1, self.n_sp, dtype=float)  # j ≥ 1
+        self.jj2 = self.jj * self.jj
+        self.jj3 = self.jj[:, None, None]
         # (P-1, K, N): 10^-cum_pk, exactly 0 for padded species (cum_pk = +inf; exp(-inf)
         # is numpy's slow path, so pads are masked instead).
         cum = np.ascontiguousarray(p.cum_pk[..., 1:].transpose(2, 1, 0))
@@ -320,14 +334,14 @@ class _LoopKernel:
         self.kc[pad] = 0.0
         self.top = np.ascontiguousarray(p.charge[..., 0].T)
         self.two_top = 2.0 * self.top
-        self.top_rows = [k for k in range(self.top.shape[0]) if self.top[k].any()]
+        self.top_rows = np.flatnonzero(self.top.any(axis=1)).tolist()
         self.top_pos = np.maximum(self.top, 0.0)
         # Positive species beyond species 0 (a custom system with top charge ≥ +2).
         rest = p.charge[..., 1:]
         self.zpos_rest = (
             np.ascontiguousarray(np.maximum(rest, 0.0).transpose(2, 1, 0)) if (rest > 0).any() else None
         )
-        self.pos_rows = [k for k in range(self.top.shape[0]) if self.top_pos[k].any()]
+        self.pos_rows = np.flatnonzero(self.top_pos.any(axis=1)).tolist()
         self.any_open = bool(p.is_open.any())
         self.is_open = np.ascontiguousarray(p.is_open.T)
         if self.any_open:
@@ -358,6 +372,7 @@ class _LoopKernel:
         k = object.__new__(_LoopKernel)
         k.p = self.p.take(idx) if self.code not in (IDEAL, DAVIES, EXTENDED_DH) else None
         k.code, k.n_sp, k.any_open = self.code, self.n_sp, self.any_open
+        k.jj, k.jj2, k.jj3 = self.jj, self.jj2, self.jj3
         for name in self._ARRAYS:
             a = getattr(self, name)
             setattr(k, name, None if a is None else a[..., idx])
@@ -423,6 +438,8 @@ class _LoopKernel:
         """G = ln P − ln N, dG/dpH, the ionic strength implied at ``ph`` with γ(``ionic``),
         its derivative dI/dpH at fixed γ (None unless ``slope``), P, N [eq/kg] and the
         log10 γ of H+ and OH−."""
+        if ph.shape[0] <= STACKED_STREAMS and self.n_sp >= 4 and not self.any_open and self.zpos_rest is None:
+            return self._evaluate_stacked(ph, ionic, slope)
         weights, lh, loh = self._weights(ph, ionic)
         m0 = m1 = m2 = m3 = szp = szpj = None
         for j, w in enumerate(weights, start=1):
@@ -504,11 +521,89 @@ class _LoopKernel:
         return g, dg, new_i, di, pos, neg, lh, loh
 
 
+    def _evaluate_stacked(self, ph: NDArray, ionic: NDArray, slope: bool):
+        """``evaluate`` for a few streams without open systems or positive species beyond
+        species 0, with the per-species and per-slot quantities stacked so that one numpy
+        call does the work of several (the fixed cost per call dominates at small N).
+        Every element is the same IEEE operation sequence as in ``evaluate``: the moments
+        are (((w·j)·j)·j) summed j = 1, 2, … with m0 = (w_1 + 1) + w_2 + …, and every sum
+        over slots runs slot by slot."""
+        if self.code == IDEAL or self.code == DAVIES:
+            u = LN10 * ph
+            lh, loh = self.log_gamma_ions(np.minimum(ionic, GAMMA_IONIC_MAX))
+            gl = LN10 * lh
+            e = np.multiply.outer(self.jj, u)
+            e -= np.multiply.outer(self.jj2, gl)
+            w = self.kc * np.exp(e)[:, None, :]
+            if self.top_rows:
+                jg = np.multiply.outer(self.jj, gl)
+                for r in self.top_rows:
+                    w[:, r] = self.kc[:, r] * np.exp(e + jg * self.two_top[r])
+        else:
+            w, lh, loh = self._weights(ph, ionic)
+        n_j = w.shape[0]
+        # a[i, j-1] = w_j · j^i, i = 0…3 (a[0, 0] carries the + 1 of species 0).
+        a = np.empty((4,) + w.shape)
+        np.add(w[0], 1.0, out=a[0, 0])
+        a[0, 1:] = w[1:]
+        np.multiply(w, self.jj3, out=a[1])
+        np.multiply(a[1], self.jj3, out=a[2])
+        np.multiply(a[2], self.jj3, out=a[3])
+        if n_j == 1:
+            mom = a[:, 0]
+        else:
+            mom = a[:, 0] + a[:, 1]
+            for j in range(2, n_j):
+                mom += a[:, j]
+        inv = 1.0 / mom[0]
+        jbar = mom[1] * inv
+        s = self.total * inv
+        # b: x1 = s m1, x2 = s m2, s m3, d2 = x2 − x1 j̄, d3 = s m3 − x2 j̄; (5, K, N).
+        b = np.empty((5,) + s.shape)
+        np.multiply(s, mom[1:], out=b[:3])
+        np.multiply(b[:2], jbar, out=b[3:])
+        np.subtract(b[1:3], b[3:], out=b[3:])
+        n_k = s.shape[0]
+        if n_k == 1:
+            sums = b[:, 0].copy()
+        else:
+            sums = b[:, 0] + b[:, 1]
+            for k in range(2, n_k):
+                sums += b[:, k]
+        sums[1] += self.sum_tt2
+        for r in self.top_rows:
+            # e_sys −= 2t·x1 and f_i −= 2t·d2 on this slot.
+            sums[1::3] -= self.two_top[r] * b[0::3, r]
+        e_sys, d_sys, f_i = sums[1], sums[3], sums[4]
+        b_sys = self.sum_tt - sums[0]
+        a_sys = c_sys = 0.0
+        for r in self.pos_rows:
+            sp = s[r] * self.top_pos[r]
+            a_sys = a_sys + sp
+            c_sys = c_sys - sp * jbar[r]
+        m_h = np.exp(-LN10 * (ph + lh))
+        m_oh = np.exp(LN10 * (ph - self.pkw - loh))
+        pos = self.strong_pos + m_h + a_sys
+        neg = self.strong_neg + m_oh + (a_sys - b_sys)
+        dpos = LN10 * (c_sys - m_h)
+        dneg = LN10 * (m_oh + c_sys + d_sys)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            g = np.log(pos) - np.log(neg)
+            dg = dpos / pos - dneg / neg
+        new_i = self.half_strong_ionic + 0.5 * (m_h + m_oh + e_sys)
+        di = (0.5 * LN10) * (m_oh - m_h + f_i) if slope else None
+        return g, dg, new_i, di, pos, neg, lh, loh
+
 #: Streams solved together at most: larger batches are solved in slices of this size,
 #: which keeps the working arrays in cache (the time per stream stays flat) and changes no
 #: result (every stream's iteration is its own). 8 192 streams: a (K, N) array of six
 #: slots is 384 KiB; 5 % faster than 16 384 on the benchmark (both models).
 SLICE_STREAMS = 8_192
+#: Up to this many streams, ``_LoopKernel`` evaluates with stacked arrays (fewer numpy
+#: calls, the same results) when some system has three or more steps (P ≥ 4: with two
+#: steps the per-species loop is as short); larger batches keep the per-species loop
+#: (no gain measured at 100 streams).
+STACKED_STREAMS = 256
 #: The working set is compacted when fewer than this fraction of it is still iterating.
 COMPACT_BELOW = 0.6
 
@@ -555,8 +650,7 @@ def _solve_slice(
     the loop's) drop converged streams once they are a sizeable part of them.
     """
     n = p.n_streams
-    codes = np.unique(p.activity_code)
-    code = int(codes[0]) if codes.size == 1 else None
+    code = _single_code(p.activity_code)
     full = _LoopKernel(p, code)
     ph = np.full(n, 7.0) if ph_guess is None else np.clip(ph_guess, PH_MIN + 0.01, PH_MAX - 0.01)
     ideal = p.activity_code == IDEAL
@@ -570,68 +664,70 @@ def _solve_slice(
     live = np.ones(n, dtype=bool)
     n_live = n
     last = np.full(n, np.inf)
-    for it in range(MAX_NEWTON):
-        if n_live < COMPACT_BELOW * rows.size:
-            keep = np.flatnonzero(live)
-            rows, k, is_ideal = rows[keep], k.take(keep), is_ideal[keep]
-            x, cur, lo, hi, last = x[keep], cur[keep], lo[keep], hi[keep], last[keep]
-            live = np.ones(keep.size, dtype=bool)
-        g, dg, new_i, di_dph, _, _, _, _ = k.evaluate(x, cur)
-        above = g > 0
-        lo = np.where(above, x, lo)
-        hi = np.where(above, hi, x)
-        with np.errstate(divide="ignore", invalid="ignore"):
+    # One floating-point error state for the loop (entering one costs as much as a few
+    # small array operations): a division by dG = 0 or a NaN/inf step is handled as data.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for it in range(MAX_NEWTON):
+            if n_live < COMPACT_BELOW * rows.size:
+                keep = np.flatnonzero(live)
+                rows, k, is_ideal = rows[keep], k.take(keep), is_ideal[keep]
+                x, cur, lo, hi, last = x[keep], cur[keep], lo[keep], hi[keep], last[keep]
+                live = np.ones(keep.size, dtype=bool)
+            g, dg, new_i, di_dph, _, _, _, _ = k.evaluate(x, cur)
+            above = g > 0
+            lo = np.where(above, x, lo)
+            hi = np.where(above, hi, x)
             step = -g / dg
-        newton = x + step
-        # Strict: a Newton step of ~0 from a bracket end is converged, not a reason to bisect.
-        bad = ~np.isfinite(newton) | (newton < lo) | (newton > hi)
-        # Also bisect a Newton step that turns back by more than half the step before: on
-        # an S-shaped G, Newton can cycle between two points inside a bracket that the
-        # ionic-strength updates keep from shrinking. Near the root steps shrink fast.
-        with np.errstate(invalid="ignore"):  # 0 × inf on the first step is no turn
+            newton = x + step
+            # Strict: a Newton step of ~0 from a bracket end is converged, not a reason to bisect.
+            bad = ~np.isfinite(newton) | (newton < lo) | (newton > hi)
+            # Also bisect a Newton step that turns back by more than half the step before: on
+            # an S-shaped G, Newton can cycle between two points inside a bracket that the
+            # ionic-strength updates keep from shrinking. Near the root steps shrink fast.
+            # (0 × inf on the first step is no turn.)
             bad |= (step * last < 0) & (np.abs(step) > np.maximum(0.5 * np.abs(last), 1e-6))
-        nxt = np.where(bad, 0.5 * (lo + hi), newton)
-        last = nxt - x
-        i_ok = is_ideal | (np.abs(new_i - cur) <= I_ATOL + I_RTOL * new_i)
-        small = np.abs(step) < PH_TOL  # False for NaN and ±inf
-        width = hi - lo
-        conv = live & i_ok & (small | (width < PH_TOL))
-        if conv.any():
-            c = np.flatnonzero(conv)
-            r = rows[c]
-            ph[r] = np.where(small[c] & ~bad[c], newton[c], x[c])
-            # A converged stream keeps the ionic strength its pH was solved with, so the
-            # reported residual is that of the pH returned.
-            ionic[r] = cur[c]
-            iters[r] = it + 1
-            done[r] = True
-            live[c] = False
-            n_live -= c.size
-            if n_live == 0:
-                break
-        if it < JOINT_STEPS:
-            # The ionic strength at the next pH, to first order, kept within a factor 2
-            # of the value at this pH (the pH step can be several units early on).
-            update_i = ~i_ok
-            i_next = np.clip(new_i + di_dph * (nxt - x), 0.5 * new_i, 2.0 * new_i)
-            i_next = np.where(np.isfinite(i_next), i_next, new_i)
+            nxt = np.where(bad, 0.5 * (lo + hi), newton)
+            last = nxt - x
+            i_ok = is_ideal | (np.abs(new_i - cur) <= I_ATOL + I_RTOL * new_i)
+            small = np.abs(step) < PH_TOL  # False for NaN and ±inf
+            width = hi - lo
+            conv = live & i_ok & (small | (width < PH_TOL))
+            if conv.any():
+                c = np.flatnonzero(conv)
+                r = rows[c]
+                ph[r] = np.where(small[c] & ~bad[c], newton[c], x[c])
+                # A converged stream keeps the ionic strength its pH was solved with, so the
+                # reported residual is that of the pH returned.
+                ionic[r] = cur[c]
+                iters[r] = it + 1
+                done[r] = True
+                live[c] = False
+                n_live -= c.size
+                if n_live == 0:
+                    break
+            if it < JOINT_STEPS:
+                # The ionic strength at the next pH, to first order, kept within a factor 2
+                # of the value at this pH (the pH step can be several units early on).
+                update_i = ~i_ok
+                i_next = np.minimum(np.maximum(new_i + di_dph * (nxt - x), 0.5 * new_i), 2.0 * new_i)
+                i_next = np.where(np.isfinite(i_next), i_next, new_i)
+            else:
+                # Nested mode: hold I until the pH has settled for it.
+                update_i = ~i_ok & ((np.abs(step) < 1e-7) | (width < 1e-7))
+                i_next = new_i
+            # The root moves with γ by about |Δlog γ| ≤ z²·A·|Δ√I| (z² ≤ 9 here, A < 0.61):
+            # widen the bracket by a safe multiple of that, not more, so it still shrinks.
+            shift = 10.0 * k.a_dh * np.abs(np.sqrt(i_next) - np.sqrt(cur)) + 1e-9
+            if it >= JOINT_STEPS:
+                shift += 1e-6
+            margin = np.where(update_i, shift, 0.0)
+            lo = np.maximum(PH_MIN, np.minimum(lo, nxt) - margin)
+            hi = np.minimum(PH_MAX, np.maximum(hi, nxt) + margin)
+            x = nxt
+            cur = np.where(update_i, i_next, cur)
         else:
-            # Nested mode: hold I until the pH has settled for it.
-            update_i = ~i_ok & ((np.abs(step) < 1e-7) | (width < 1e-7))
-            i_next = new_i
-        # The root moves with γ by about |Δlog γ| ≤ z²·A·|Δ√I| (z² ≤ 9 here, A < 0.61):
-        # widen the bracket by a safe multiple of that, not more, so it still shrinks.
-        shift = 10.0 * k.a_dh * np.abs(np.sqrt(i_next) - np.sqrt(cur)) + 1e-9
-        if it >= JOINT_STEPS:
-            shift += 1e-6
-        margin = np.where(update_i, shift, 0.0)
-        lo = np.maximum(PH_MIN, np.minimum(lo, nxt) - margin)
-        hi = np.minimum(PH_MAX, np.maximum(hi, nxt) + margin)
-        x = nxt
-        cur = np.where(update_i, i_next, cur)
-    else:
-        ph[rows[live]] = x[live]
-        ionic[rows[live]] = cur[live]
+            ph[rows[live]] = x[live]
+            ionic[rows[live]] = cur[live]
     _, _, ionic_actual, _, pos, neg, lh, loh = full.evaluate(ph, ionic, slope=False)
     f, scale = pos - neg, pos + neg
     lg = _log_gamma_species(p, code, ionic)

@@ -166,3 +166,40 @@ def test_a_newton_cycle_inside_the_bracket_is_broken_by_bisection(name: str) -> 
     terms = [abs(s.charge * s.mol_l) for s in res.species]
     assert abs(res.charge_balance_residual_mol_l) < 1e-12 * max(terms)
     assert res.iterations <= 25
+
+
+@pytest.mark.parametrize("mix", [*MODELS, "mixed"])
+@pytest.mark.parametrize("slope", [True, False])
+def test_stacked_small_batch_evaluation_is_bit_identical_to_the_species_loop(
+    mix: str, slope: bool, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # Closed systems only (the stacked path's domain): a batch evaluated with stacked arrays
+    # (few streams) and with the per-species loop (many) gives the same bits per stream.
+    import models.solver as solver
+
+    names = ("carbonate", "phosphate", "ammonia", "acetate", "sulfate", "borate", "silicate")
+    models_ = MODELS if mix == "mixed" else (mix,)
+    specs = [StreamSpec(tuple(Entry(s, 0.1 + 0.37 * ((i + k) % 4), "mmol/L") for i, s in enumerate(names[: 2 + k]))
+                        + (Entry("Na+", 2.0 + k, "mmol/L"), Entry("Cl-", 1.0, "mmol/L")),
+                        temperature_c=10.0 + 9 * k, activity_model=models_[k % len(models_)]) for k in range(6)]
+    specs.append(StreamSpec((Entry("diamine", 1.5, "mmol/L"), Entry("Cl-", 2.0, "mmol/L")),
+                            activity_model=models_[0], custom_systems=(CustomSystem("diamine", (3.1, 6.7), 1, None),)))
+    p = _problem(specs)
+    assert not p.is_open.any()
+    codes = np.unique(p.activity_code)
+    kern = _LoopKernel(p, int(codes[0]) if codes.size == 1 else None)
+    assert kern.zpos_rest is None and kern.n_sp >= 4
+    n = p.n_streams
+    for ph0 in (-0.5, 2.0, 6.3, 9.8, 14.5):
+        ph = ph0 + np.linspace(0.0, 0.4, n)
+        ionic = np.where(p.activity_code == 0, 0.0, np.linspace(1e-4, 0.3, n))
+        monkeypatch.setattr(solver, "STACKED_STREAMS", n)
+        stacked = kern.evaluate(ph, ionic, slope=slope)
+        monkeypatch.setattr(solver, "STACKED_STREAMS", 0)
+        looped = kern.evaluate(ph, ionic, slope=slope)
+        for x, y in zip(stacked, looped):
+            if y is None:
+                assert x is None
+            else:
+                np.testing.assert_array_equal(x, y)
+                assert (np.signbit(x) == np.signbit(y)).all()
