@@ -6,7 +6,10 @@ from __future__ import annotations
 import copy
 import dataclasses
 import gc
+import json
 import math
+import random
+import struct
 from dataclasses import replace
 from typing import Any
 
@@ -20,7 +23,7 @@ from models.stream import CustomSystem, Entry, StreamSpec
 from service.convert import NonFiniteResult, _slot_builder, response_dict, to_spec
 from service.problems import make_problem, summarise
 from service.checks import structural_errors
-from service.routes_equilibrium import gc_paused
+from service.routes_equilibrium import gc_paused, loads_like_json
 from service.schemas import BatchItemError, BatchRequest, Stream
 
 from tests.conftest import CREAMERY_STREAM
@@ -185,3 +188,54 @@ def test_batch_runs_with_the_collector_paused_and_answers_as_before(make_client,
 
     bad = client.post("/v1/equilibrium/batch", json={"items": [{"composition": "x"}]})  # schema error: whole request
     assert bad.status_code == 422 and gc.isenabled()
+
+
+_JSON_CASES = [
+    b'{"a":1,"a":2}', b"1e400", b"-1e400", b"1e-400", b"-0", b"-0.0", b"18446744073709551616",
+    b"9223372036854775808", b"-9223372036854775809", b"123456789012345678901234567890",
+    b'"\\ud800"', b'"\\ud83d\\ude00"', b"\xef\xbb\xbf{}", b" {} ", b"NaN", b"[Infinity, -Infinity]",
+    b"[1.0e2, 1E2, 0.1, 5e-324, 2.2250738585072011e-308, 1.7976931348623159e308]",
+    b'{"\\u0061": "\x7f"}', '{"é": "ü"}'.encode(), '{"a": [1, 2.5]}'.encode("utf-16"),
+    b"0.12345678901234567890123", b'{"items": [{"value": 410.12345678901234}]}',
+]
+
+
+@pytest.mark.parametrize("body", _JSON_CASES)
+def test_loads_like_json_is_json_loads(body: bytes) -> None:
+    want = json.loads(body)
+    got = loads_like_json(body)
+    assert repr(got) == repr(want) and type(got) is type(want)
+
+
+@pytest.mark.parametrize("body", [b"", b"{", b'{"a":1}x', b"\x00", b"\xff{}", b'"\x00"', b"[1,]"])
+def test_loads_like_json_fails_like_json_loads(body: bytes) -> None:
+    with pytest.raises(ValueError) as want:
+        json.loads(body)
+    with pytest.raises(ValueError) as got:
+        loads_like_json(body)
+    assert type(got.value) is type(want.value) and str(got.value) == str(want.value)
+
+
+def test_loads_like_json_floats() -> None:
+    rng = random.Random(6)
+    texts = []
+    for _ in range(20_000):
+        x = struct.unpack("<d", rng.getrandbits(64).to_bytes(8, "little"))[0]
+        if math.isfinite(x):
+            texts += [repr(x), f"{x:.17g}", f"{x:.15e}", f"{rng.uniform(0, 1000):.3f}"]
+    body = ("[" + ",".join(texts) + "]").encode()
+    assert loads_like_json(body) == json.loads(body)
+
+
+def test_batch_body_is_parsed_by_loads_like_json(make_client, monkeypatch) -> None:
+    import service.routes_equilibrium as routes
+
+    calls: list[int] = []
+
+    def spy(body: bytes) -> Any:
+        calls.append(len(body))
+        return loads_like_json(body)
+
+    monkeypatch.setattr(routes, "loads_like_json", spy)
+    r = make_client().post("/v1/equilibrium/batch", json={"items": [CREAMERY_STREAM]})
+    assert r.status_code == 200 and len(calls) == 1
