@@ -7,9 +7,8 @@ import json
 import logging
 import re
 import threading
-import types
 from collections.abc import Callable, Coroutine, Iterator
-from contextlib import contextmanager
+from contextlib import ExitStack, contextmanager
 from typing import Any
 
 import anyio.to_thread
@@ -120,25 +119,30 @@ def loads_like_json(body: bytes) -> Any:
     return json.loads(body)
 
 
-async def _request_json(self: Request) -> Any:
-    """``Request.json`` with :func:`loads_like_json` (same caching, same errors)."""
-    if not hasattr(self, "_json"):
-        self._json = loads_like_json(await self.body())
-    return self._json
-
-
 class GCPausedRoute(APIRoute):
-    """An ``APIRoute`` whose whole handling — body read, JSON parse, validation,
-    dependencies, the endpoint — runs inside :func:`gc_paused`, with the body parsed by
-    :func:`loads_like_json`. Documentation (OpenAPI) and behaviour are those of a plain
-    ``APIRoute``."""
+    """An ``APIRoute`` whose body is parsed by :func:`loads_like_json` and whose work from
+    then on — parse, validation, dependencies, the endpoint — runs inside
+    :func:`gc_paused`. The pause starts only once the whole body has arrived, so a slow
+    or stalled upload never holds the collector off. Documentation (OpenAPI), errors and
+    answers are those of a plain ``APIRoute``."""
 
     def get_route_handler(self) -> Callable[[Request], Coroutine[Any, Any, Response]]:
         handler = super().get_route_handler()
 
         async def paused(request: Request) -> Response:
-            request.json = types.MethodType(_request_json, request)  # type: ignore[method-assign]
-            with gc_paused():
+            with ExitStack() as pause:
+                entered: list[bool] = []
+
+                async def request_json() -> Any:  # Request.json: same caching, same errors
+                    if not hasattr(request, "_json"):
+                        body = await request.body()
+                        if not entered:
+                            pause.enter_context(gc_paused())
+                            entered.append(True)
+                        request._json = loads_like_json(body)
+                    return request._json
+
+                request.json = request_json  # type: ignore[method-assign]
                 try:
                     return await handler(request)
                 finally:
