@@ -50,6 +50,11 @@ class Derived:
     species: tuple[NDArray, NDArray, NDArray] | None = None
 
 
+#: Batches up to this many streams evaluate several states in one stacked numpy pass;
+#: larger ones evaluate them one by one, which keeps the working arrays in cache.
+STACK_MAX_STREAMS = 2048
+
+
 def buffer_capacity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArray[np.float64]:
     """β = dC_base/dpH [mol/kg per pH].
 
@@ -87,18 +92,22 @@ def _beta_with_activity(p: BalanceProblem, ph: NDArray, ionic: NDArray) -> NDArr
     d_i = np.maximum(1e-6 * ionic, 1e-12)
     lo_i = np.maximum(ionic - d_i, 0.0)
     kern = BalanceKernel(p)
-    # The four evaluations in one stacked pass (L = 4 rows of the same streams); the
-    # two pH steps share the sample's γ.
+    # Four evaluations; the two pH steps share the sample's γ. Small batches stack them
+    # into one pass (fewer numpy calls); large ones evaluate them one by one (a stacked
+    # pass of 4 × N rows falls out of cache). Each row is computed alike either way.
     lg0, lh0, loh0 = kern.log_gammas(ionic)
     lg_up, lh_up, loh_up = kern.log_gammas(ionic + d_i)
     lg_dn, lh_dn, loh_dn = kern.log_gammas(lo_i)
-    _, _, psi, pos, neg = kern.evaluate(
-        np.stack((ph + BETA_STEP_PH, ph - BETA_STEP_PH, ph, ph)),
-        np.stack((lg0, lg0, lg_up, lg_dn)),
-        np.stack((lh0, lh0, lh_up, lh_dn)),
-        np.stack((loh0, loh0, loh_up, loh_dn)),
-    )
-    x = neg - pos
+    at = (ph + BETA_STEP_PH, ph - BETA_STEP_PH, ph, ph)
+    lgs, lhs, lohs = (lg0, lg0, lg_up, lg_dn), (lh0, lh0, lh_up, lh_dn), (loh0, loh0, loh_up, loh_dn)
+    if ph.shape[0] <= STACK_MAX_STREAMS:
+        _, _, psi, pos, neg = kern.evaluate(np.stack(at), np.stack(lgs), np.stack(lhs), np.stack(lohs))
+        x = neg - pos
+    else:
+        x, psi = np.empty((4,) + ph.shape), np.empty((4,) + ph.shape)
+        for r in range(4):
+            _, _, psi[r], pos, neg = kern.evaluate(at[r], lgs[r], lhs[r], lohs[r])
+            x[r] = neg - pos
     span_i = ionic + d_i - lo_i
     x_p = (x[0] - x[1]) / (2 * BETA_STEP_PH)
     psi_p = (psi[0] - psi[1]) / (2 * BETA_STEP_PH)
@@ -145,7 +154,12 @@ def alkalinities_eq_kg(
     at[1] = TOTAL_ENDPOINT_PH
     if any_above:
         at[2] = PHENOLPHTHALEIN_ENDPOINT_PH
-    f = _charge_balance(closed, at, lg, lh, loh)
+    if ph.shape[0] <= STACK_MAX_STREAMS:
+        f = _charge_balance(closed, at, lg, lh, loh)
+    else:  # one end point at a time (see STACK_MAX_STREAMS)
+        f = np.empty_like(at)
+        for r in range(at.shape[0]):
+            f[r] = _charge_balance(closed, at[r], lg, lh, loh)
     f_s = f[0]
     total = f[1] - f_s
     phen = np.zeros_like(ph)
