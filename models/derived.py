@@ -21,8 +21,14 @@ if TYPE_CHECKING:
     from models.thermo import ThermoDatabase
 
 __all__ = [
-    "TOTAL_ENDPOINT_PH", "PHENOLPHTHALEIN_ENDPOINT_PH", "Derived", "compute", "buffer_capacity", "alkalinity_eq_kg",
-    "alkalinities_eq_kg", "langelier_ph_s",
+    "PHENOLPHTHALEIN_ENDPOINT_PH",
+    "TOTAL_ENDPOINT_PH",
+    "Derived",
+    "alkalinities_eq_kg",
+    "alkalinity_eq_kg",
+    "buffer_capacity",
+    "compute",
+    "langelier_ph_s",
 ]
 
 #: Total alkalinity end point [pH], Standard Methods 2320 B (routine, industrial and

@@ -19,38 +19,39 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from functools import lru_cache
+
 import numpy as np
 from numpy.typing import NDArray
 
+from models import water
+from models.activity import IDEAL
 from models.derived import buffer_capacity
 from models.equilibrium import failure_message, solve_arrays
 from models.errors import InputError, SolveError, UnreachableSetpoint
-from models.reagents import Reagent
 from models.prepare import Assembled, ParsedStream, parse_stream
-from models.activity import IDEAL
+from models.reagents import Reagent
 from models.solver import (
-    BalanceKernel,
     I_ATOL,
     I_RTOL,
     MAX_OUTER,
     OK,
     PH_MAX,
+    BalanceKernel,
     BalanceProblem,
     solve_balance,
 )
-from models import water
 from models.stream import Entry, StreamSpec
-from models.units import is_per_kg, to_mol_per_l
 from models.thermo import ThermoDatabase, load_database
+from models.units import is_per_kg, to_mol_per_l
 
 __all__ = [
+    "HIGH_GAIN_RULE",
     "MAX_DOSE_MOL_L",
     "SETPOINT_TOLERANCE_PH",
-    "HIGH_GAIN_RULE",
-    "DosePlan",
     "DoseCurve",
-    "plan_doses",
+    "DosePlan",
     "dose_curve",
+    "plan_doses",
 ]
 
 #: Largest dose considered [mol/L of stream]: beyond this the reagent volume would no

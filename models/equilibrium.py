@@ -15,9 +15,9 @@ import numpy as np
 from numpy.typing import NDArray
 
 from models import derived
-from models.derived import TOTAL_ENDPOINT_PH
 from models.activity import VALIDITY_LIMIT_MOL_KG
 from models.calibration import close_at_ph
+from models.derived import TOTAL_ENDPOINT_PH
 from models.errors import InputError, SolveError
 from models.prepare import CARBONATE, Assembled, ParsedStream, assemble, parse_stream
 from models.results import (
@@ -46,7 +46,7 @@ from models.solver import (
 from models.stream import ACTIVITY_MODELS, StreamSpec
 from models.thermo import ThermoDatabase, load_database
 
-__all__ = ["solve", "solve_many", "Solved", "solve_arrays", "failure_message"]
+__all__ = ["Solved", "failure_message", "solve", "solve_arrays", "solve_many"]
 
 
 

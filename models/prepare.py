@@ -29,7 +29,7 @@ from models.solver import BalanceProblem
 from models.stream import ACTIVITY_MODELS, BALANCE_IONS, CustomSystem, StreamSpec
 from models.thermo import SystemData, ThermoDatabase
 
-__all__ = ["ALKALINITY", "ParsedStream", "parse_stream", "assemble", "Assembled", "water_terms"]
+__all__ = ["ALKALINITY", "Assembled", "ParsedStream", "assemble", "parse_stream", "water_terms"]
 
 ALKALINITY = "alkalinity"
 CARBONATE = "carbonate"

@@ -13,11 +13,11 @@ from typing import Any
 
 __all__ = [
     "Alkalinity",
-    "SpeciesAmount",
-    "SystemSpeciation",
     "Calibration",
     "EquilibriumResult",
+    "SpeciesAmount",
     "StreamFailure",
+    "SystemSpeciation",
 ]
 
 

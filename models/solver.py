@@ -32,17 +32,17 @@ from models.activity import (
 )
 
 __all__ = [
-    "PH_MIN",
     "PH_MAX",
+    "PH_MIN",
     "STATUS_MESSAGES",
+    "BalanceKernel",
     "BalanceProblem",
     "BalanceState",
+    "balance",
+    "gammas",
+    "ionic_strength_of",
     "solve_balance",
     "species_state",
-    "gammas",
-    "balance",
-    "ionic_strength_of",
-    "BalanceKernel",
 ]
 
 LN10 = float(np.log(10.0))

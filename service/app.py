@@ -13,8 +13,8 @@ from fastapi.middleware.cors import CORSMiddleware
 
 from service.auth import API_KEY_HEADER, api_key_dependency
 from service.coalesce import Coalescer
-from service.fastpath import EquilibriumFastPath
 from service.core import Core, default_core
+from service.fastpath import EquilibriumFastPath
 from service.logging import configure_logging
 from service.metrics import Metrics
 from service.middleware import REQUEST_ID_HEADER, BodyLimitMiddleware, RequestContextMiddleware

@@ -27,7 +27,7 @@ from pathlib import Path
 
 from service.settings import LOG_LEVELS, Settings, SettingsError
 
-__all__ = ["main", "build_parser"]
+__all__ = ["build_parser", "main"]
 
 DEFAULT_OPENAPI_PATH = Path("openapi/openapi.json")
 

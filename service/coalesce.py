@@ -27,7 +27,6 @@ from concurrent.futures import ThreadPoolExecutor
 
 from models.results import EquilibriumResult, StreamFailure
 from models.stream import StreamSpec
-
 from service.problems import ProblemError
 
 __all__ = ["Coalescer", "Outcome", "SolveMany"]

@@ -10,16 +10,15 @@ from typing import Any
 
 from models.results import EquilibriumResult
 from models.stream import CustomSystem, Entry, StreamSpec
-
 from service.schemas import EquilibriumResponse, Stream
 
 __all__ = [
     "NonFiniteResult",
-    "require_finite",
     "from_spec",
-    "to_spec",
-    "to_response",
+    "require_finite",
     "response_dict",
+    "to_response",
+    "to_spec",
 ]
 
 

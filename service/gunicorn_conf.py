@@ -18,7 +18,7 @@ from service.logging import skip_unlogged_record_fields
 from service.metrics import prepare_multiprocess_dir
 from service.settings import Settings
 
-__all__ = ["bind", "workers", "worker_class", "graceful_timeout", "timeout", "accesslog", "on_starting", "child_exit"]
+__all__ = ["accesslog", "bind", "child_exit", "graceful_timeout", "on_starting", "timeout", "worker_class", "workers"]
 
 _settings = Settings.from_env()
 

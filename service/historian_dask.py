@@ -38,8 +38,8 @@ from service.historian import (
     is_parquet,
     output_header,
     read_header,
-    solve_parquet,
     solve_bytes,
+    solve_parquet,
 )
 
 __all__ = ["DaskUnavailable", "Partition", "part_name", "plan_csv", "plan_parquet", "run_dask", "solve_partition"]

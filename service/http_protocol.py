@@ -23,7 +23,7 @@ __all__ = ["HttpToolsProtocol", "WriteCoalescingTransport"]
 class WriteCoalescingTransport:
     """A transport whose writes of one loop step leave as one ``write`` of the real one."""
 
-    __slots__ = ("_transport", "_loop", "_pending", "_scheduled")
+    __slots__ = ("_loop", "_pending", "_scheduled", "_transport")
 
     def __init__(self, transport: asyncio.Transport, loop: asyncio.AbstractEventLoop) -> None:
         self._transport = transport

@@ -32,10 +32,10 @@ from prometheus_client import (
     Gauge,
     Histogram,
     generate_latest,
+    multiprocess,
 )
-from prometheus_client import multiprocess
-from prometheus_client.process_collector import ProcessCollector
 from prometheus_client.platform_collector import PlatformCollector
+from prometheus_client.process_collector import ProcessCollector
 
 __all__ = ["CONTENT_TYPE_LATEST", "METRIC_NAMES", "Metrics", "multiprocess_dir", "prepare_multiprocess_dir"]
 

@@ -17,7 +17,6 @@ from fastapi.responses import Response
 from fastapi.routing import APIRoute
 
 from models.results import StreamFailure
-
 from service.checks import structural_errors
 from service.convert import NonFiniteResult, response_dict, to_spec
 from service.deps import batch_cap, require_json, require_ready
@@ -33,7 +32,7 @@ from service.schemas import (
 from service.solving import Solver
 from service.state import AppState
 
-__all__ = ["equilibrium_router", "failure_problem", "json_response", "gc_paused", "GCPausedRoute", "loads_like_json"]
+__all__ = ["GCPausedRoute", "equilibrium_router", "failure_problem", "gc_paused", "json_response", "loads_like_json"]
 
 _log = logging.getLogger("protolyte.errors")
 

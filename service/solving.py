@@ -17,7 +17,6 @@ import anyio.to_thread
 from models.errors import InputError, ProtolyteError, SolveError, UnreachableSetpoint
 from models.results import EquilibriumResult, StreamFailure
 from models.stream import StreamSpec
-
 from service.coalesce import Coalescer
 from service.core import Core
 from service.metrics import Metrics
