@@ -507,18 +507,7 @@ class _LoopKernel:
             sp = s * szp
             a_sys = _sum_slots(sp)
             c_sys = _sum_slots(s * szpj - sp * jbar)
-        m_h = np.exp(-LN10 * (ph + lh))
-        m_oh = np.exp(LN10 * (ph - self.pkw - loh))
-        pos = self.strong_pos + m_h + a_sys
-        neg = self.strong_neg + m_oh + (a_sys - b_sys)
-        dpos = LN10 * (c_sys - m_h)
-        dneg = LN10 * (m_oh + c_sys + d_sys)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            g = np.log(pos) - np.log(neg)
-            dg = dpos / pos - dneg / neg
-        new_i = self.half_strong_ionic + 0.5 * (m_h + m_oh + e_sys)
-        di = (0.5 * LN10) * (m_oh - m_h + f_i) if slope else None
-        return g, dg, new_i, di, pos, neg, lh, loh
+        return self._close(ph, lh, loh, a_sys, b_sys, c_sys, d_sys, e_sys, f_i if slope else None)
 
 
     def _evaluate_stacked(self, ph: NDArray, ionic: NDArray, slope: bool):
@@ -581,6 +570,11 @@ class _LoopKernel:
             sp = s[r] * self.top_pos[r]
             a_sys = a_sys + sp
             c_sys = c_sys - sp * jbar[r]
+        return self._close(ph, lh, loh, a_sys, b_sys, c_sys, d_sys, e_sys, f_i if slope else None)
+
+    def _close(self, ph, lh, loh, a_sys, b_sys, c_sys, d_sys, e_sys, f_i):
+        """G, dG/dpH, the implied ionic strength and its slope from the slot sums (both
+        evaluation paths end here, so they round alike); ``f_i`` None: no slope."""
         m_h = np.exp(-LN10 * (ph + lh))
         m_oh = np.exp(LN10 * (ph - self.pkw - loh))
         pos = self.strong_pos + m_h + a_sys
@@ -591,8 +585,9 @@ class _LoopKernel:
             g = np.log(pos) - np.log(neg)
             dg = dpos / pos - dneg / neg
         new_i = self.half_strong_ionic + 0.5 * (m_h + m_oh + e_sys)
-        di = (0.5 * LN10) * (m_oh - m_h + f_i) if slope else None
+        di = None if f_i is None else (0.5 * LN10) * (m_oh - m_h + f_i)
         return g, dg, new_i, di, pos, neg, lh, loh
+
 
 #: Streams solved together at most: larger batches are solved in slices of this size,
 #: which keeps the working arrays in cache (the time per stream stays flat) and changes no
