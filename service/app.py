@@ -126,30 +126,21 @@ def create_app(settings: Settings | None = None, core: Core | None = None) -> Fa
             expose_headers=[REQUEST_ID_HEADER],
         )
     app.add_middleware(BodyLimitMiddleware, limit=settings.body_limit_bytes)
+    fast_path_options = {
+        "solver": solver,
+        "state": state,
+        "fastapi_app": app,
+        "route": next(r for r in equilibrium.routes if getattr(r, "path", None) == "/v1/equilibrium"),
+        "body_limit": settings.body_limit_bytes,
+        "api_key": settings.api_key,
+        "cors": bool(settings.cors_origins),
+    }
     if settings.fast_path:  # inside the request id / access log / metrics, outside the rest
-        app.add_middleware(
-            EquilibriumFastPath,
-            solver=solver,
-            state=state,
-            fastapi_app=app,
-            route=next(r for r in equilibrium.routes if getattr(r, "path", None) == "/v1/equilibrium"),
-            body_limit=settings.body_limit_bytes,
-            api_key=settings.api_key,
-            cors=bool(settings.cors_origins),
-        )
+        app.add_middleware(EquilibriumFastPath, **fast_path_options)
     app.add_middleware(RequestContextMiddleware, metrics=metrics)
     if settings.fast_path and not app.root_path and getattr(app, "max_body_size", None) is None:
-        app.edge = EquilibriumFastPath(
-            app,  # unused: serve() is given the whole app to fall back to
-            solver=solver,
-            state=state,
-            fastapi_app=app,
-            route=next(r for r in equilibrium.routes if getattr(r, "path", None) == "/v1/equilibrium"),
-            body_limit=settings.body_limit_bytes,
-            api_key=settings.api_key,
-            cors=bool(settings.cors_origins),
-            metrics=metrics,
-        )
+        # unused first argument: serve() is given the whole app to fall back to
+        app.edge = EquilibriumFastPath(app, **fast_path_options, metrics=metrics)
 
     def openapi() -> dict[str, Any]:
         return build_openapi(
