@@ -135,11 +135,11 @@ def create_app(settings: Settings | None = None, core: Core | None = None) -> Fa
         "api_key": settings.api_key,
         "cors": bool(settings.cors_origins),
     }
-    if settings.fast_path:  # inside the request id / access log / metrics, outside the rest
+    fast_path = settings.fast_path and not app.root_path and getattr(app, "max_body_size", None) is None
+    if fast_path:  # inside the request id / access log / metrics: answers the edge's solve errors
         app.add_middleware(EquilibriumFastPath, **fast_path_options)
     app.add_middleware(RequestContextMiddleware, metrics=metrics)
-    if settings.fast_path and not app.root_path and getattr(app, "max_body_size", None) is None:
-        # unused first argument: serve() is given the whole app to fall back to
+    if fast_path:  # unused first argument: serve() is given the whole app to fall back to
         app.edge = EquilibriumFastPath(app, **fast_path_options, metrics=metrics)
 
     def openapi() -> dict[str, Any]:

@@ -22,6 +22,10 @@ solve is answered by the app's own exception handlers (a defect re-raises to the
 outermost error middleware, as from the route). The middleware sits inside
 ``RequestContextMiddleware``, so the request id, access log line and metrics are the
 same too. ``PROTOLYTE_FAST_PATH=0`` turns it off.
+
+It runs in front of the whole app (:class:`service.app.ProtolyteAPI` calls
+:meth:`EquilibriumFastPath.serve`); a second instance sits in the middleware stack only
+to answer, with the route's exception handlers, a solve error that ``serve`` hands on.
 """
 
 from __future__ import annotations
@@ -39,7 +43,6 @@ from service.checks import structural_errors
 from service.convert import response_dict, to_spec
 from service.metrics import Metrics
 from service.middleware import (
-    DECLINED_SCOPE_KEY,
     SOLVE_ERROR_SCOPE_KEY,
     START_SCOPE_KEY,
     accept_request_id,
@@ -59,7 +62,7 @@ _validate = Stream.model_validate
 
 
 class EquilibriumFastPath:
-    """ASGI middleware answering a valid single-stream request without FastAPI's stack."""
+    """Answers a valid single-stream request without FastAPI's stack (see the module)."""
 
     def __init__(
         self,
@@ -156,29 +159,13 @@ class EquilibriumFastPath:
         return stream, messages
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        """As middleware: answer a solve error that :meth:`serve` handed to the full stack
+        (with the route's exception handlers); pass everything else on."""
         exc = scope.pop(SOLVE_ERROR_SCOPE_KEY, None)
-        if exc is not None:  # the outer fast path's solve raised: answer as from the route
+        if exc is not None:
             await self._answer_error(scope, receive, send, exc)
             return
-        if scope.get(DECLINED_SCOPE_KEY) or not self.takes(scope):
-            await self.app(scope, receive, send)
-            return
-        stream, messages = await self._read_stream(scope, receive)
-        if stream is None:
-            return await self._fallback(scope, receive, send, messages)
-        scope["route"] = self.route
-        # -- the solve, exactly as the route does it
-        try:
-            content = await self._content(stream)
-        except Exception as exc:
-            await self._answer_error(scope, receive, send, exc)
-            return
-        await send({
-            "type": "http.response.start",
-            "status": 200,
-            "headers": [(b"content-length", str(len(content)).encode("latin-1")), (b"content-type", b"application/json")],
-        })
-        await send({"type": "http.response.body", "body": content})
+        await self.app(scope, receive, send)
 
     async def _content(self, stream: Stream) -> bytes:
         result = await self.solver.solve(to_spec(stream))
@@ -199,7 +186,6 @@ class EquilibriumFastPath:
         start = perf_counter()
         stream, messages = await self._read_stream(scope, receive)
         if stream is None:
-            scope[DECLINED_SCOPE_KEY] = True
             return await self._fallback(scope, receive, send, messages, full)
         rid = accept_request_id(request_id_header(scope))
         scope[REQUEST_ID_SCOPE_KEY] = rid
@@ -246,9 +232,9 @@ class EquilibriumFastPath:
         return None
 
     async def _fallback(
-        self, scope: Scope, receive: Receive, send: Send, messages: list[Message], app: ASGIApp | None = None
+        self, scope: Scope, receive: Receive, send: Send, messages: list[Message], app: ASGIApp
     ) -> None:
-        """The full app (or ``app``), with the messages read so far replayed first."""
+        """``app`` (the full app), with the messages read so far replayed first."""
         pending = list(messages)
 
         async def replay() -> Message:
@@ -256,4 +242,4 @@ class EquilibriumFastPath:
                 return pending.pop(0)
             return await receive()
 
-        await (app or self.app)(scope, replay, send)
+        await app(scope, replay, send)

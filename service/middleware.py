@@ -30,9 +30,8 @@ __all__ = [
 
 REQUEST_ID_HEADER = "X-Request-ID"
 BATCH_SIZE_SCOPE_KEY = "protolyte.batch_size"
-#: Set by the outer fast path (service.fastpath) when it hands a request to the full app:
-#: declined (answer it as usual), or its solve raised (the exception, the start time).
-DECLINED_SCOPE_KEY = "protolyte.fast_path_declined"
+#: Set by the fast path (service.fastpath) when its solve raised and it hands the request
+#: to the full app: the exception and the request's start time.
 SOLVE_ERROR_SCOPE_KEY = "protolyte.fast_path_error"
 START_SCOPE_KEY = "protolyte.fast_path_start"
 _ID_RE = re.compile(r"^[A-Za-z0-9._-]{1,64}$")
