@@ -3,6 +3,9 @@
 from __future__ import annotations
 
 import copy
+import io
+import json
+import logging
 from collections.abc import Callable, Iterator
 from typing import Any
 
@@ -62,3 +65,19 @@ def make_client() -> Iterator[AppFactory]:
 def client(make_client: AppFactory) -> TestClient:
     """A client of the app with default settings and the real core."""
     return make_client()
+
+
+@pytest.fixture
+def access_lines() -> Iterator[Callable[[], list[dict[str, Any]]]]:
+    """The JSON access lines logged while the test runs, parsed (call to read them)."""
+    from service.logging import JsonFormatter
+
+    buffer = io.StringIO()
+    handler = logging.StreamHandler(buffer)
+    handler.setFormatter(JsonFormatter())
+    access = logging.getLogger("protolyte.access")
+    access.addHandler(handler)
+    try:
+        yield lambda: [json.loads(line) for line in buffer.getvalue().splitlines()]
+    finally:
+        access.removeHandler(handler)

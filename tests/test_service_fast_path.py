@@ -11,17 +11,16 @@ from __future__ import annotations
 
 import copy
 import json
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import Any
 
 import pytest
+from conftest import CREAMERY_STREAM, AppFactory
 from fastapi.testclient import TestClient
 
 from models.errors import InputError, SolveError
 from service import fastpath
 from service.core import Core, default_core
-
-from conftest import CREAMERY_STREAM, AppFactory
 
 PATH = "/v1/equilibrium"
 JSON = {"content-type": "application/json"}
@@ -220,28 +219,17 @@ def test_a_solve_over_the_time_budget_is_the_same_prompt_503(make_client: AppFac
 
 
 @pytest.mark.parametrize("failing", [False, True], ids=["solved", "core-error"])
-def test_the_fast_path_logs_and_counts_once_with_the_request_id(make_client: AppFactory, failing: bool) -> None:
-    import io
-    import logging
-
-    from service.logging import JsonFormatter
-
+def test_the_fast_path_logs_and_counts_once_with_the_request_id(
+    make_client: AppFactory, access_lines: Callable[[], list[dict[str, Any]]], failing: bool
+) -> None:
     core = _core_raising(SolveError("no root", "no_convergence")) if failing else None
     client = make_client(core=core) if failing else make_client()
-    buffer = io.StringIO()
-    handler = logging.StreamHandler(buffer)
-    handler.setFormatter(JsonFormatter())
-    access = logging.getLogger("protolyte.access")
-    access.addHandler(handler)
-    try:
-        r = client.post(PATH, content=json.dumps(CREAMERY_STREAM), headers={**JSON, "X-Request-ID": "edge-1"})
-        fresh = client.post(PATH, content=json.dumps(CREAMERY_STREAM), headers=JSON)
-    finally:
-        access.removeHandler(handler)
+    r = client.post(PATH, content=json.dumps(CREAMERY_STREAM), headers={**JSON, "X-Request-ID": "edge-1"})
+    fresh = client.post(PATH, content=json.dumps(CREAMERY_STREAM), headers=JSON)
     status = 422 if failing else 200
     assert r.status_code == status and r.headers["x-request-id"] == "edge-1"
     assert len(fresh.headers["x-request-id"]) == 32
-    lines = [json.loads(line) for line in buffer.getvalue().splitlines()]
+    lines = access_lines()
     assert [(x["request_id"], x["route"], x["method"], x["status"]) for x in lines] == [
         ("edge-1", PATH, "POST", status), (fresh.headers["x-request-id"], PATH, "POST", status)
     ]

@@ -9,12 +9,12 @@ import os
 import subprocess
 import sys
 import textwrap
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
 from fastapi.testclient import TestClient
 
-from service.logging import JsonFormatter
 from service.metrics import METRIC_NAMES
 from service.middleware import accept_request_id
 
@@ -99,17 +99,11 @@ def test_accept_request_id_pattern() -> None:
     assert accept_request_id(None) != accept_request_id(None)
 
 
-def test_one_json_access_line_per_request(client: TestClient, stream: dict[str, Any]) -> None:
-    buffer = io.StringIO()
-    handler = logging.StreamHandler(buffer)
-    handler.setFormatter(JsonFormatter())
-    access = logging.getLogger("protolyte.access")
-    access.addHandler(handler)
-    try:
-        client.post("/v1/equilibrium/batch", json={"items": [stream, stream]}, headers={"X-Request-ID": "log-check-1"})
-    finally:
-        access.removeHandler(handler)
-    lines = [json.loads(line) for line in buffer.getvalue().splitlines()]
+def test_one_json_access_line_per_request(
+    client: TestClient, stream: dict[str, Any], access_lines: Callable[[], list[dict[str, Any]]]
+) -> None:
+    client.post("/v1/equilibrium/batch", json={"items": [stream, stream]}, headers={"X-Request-ID": "log-check-1"})
+    lines = access_lines()
     assert len(lines) == 1
     line = lines[0]
     assert line["request_id"] == "log-check-1"
