@@ -34,6 +34,13 @@ def best(fn, repeat: int, clock=time.perf_counter) -> tuple[float, object]:
     return t_best, value
 
 
+def tree_env(tree: Path | str = ROOT) -> dict[str, str]:
+    """This process's environment with ``tree`` first on ``PYTHONPATH``: a subprocess
+    imports that checkout's code, not whatever tree the venv's editable install names."""
+    path = os.pathsep.join(p for p in (str(tree), os.environ.get("PYTHONPATH", "")) if p)
+    return {**os.environ, "PYTHONPATH": path}
+
+
 def free_port() -> int:
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
@@ -53,15 +60,13 @@ class Server:
         self.url = f"http://127.0.0.1:{self.port}"
         self._log = tempfile.NamedTemporaryFile(prefix="protolyte-bench-", suffix=".log", delete=False)
         full = {
-            **os.environ,
+            **tree_env(),
             "PROTOLYTE_HOST": "127.0.0.1",
             "PROTOLYTE_PORT": str(self.port),
             "PROTOLYTE_WORKERS": "1",
             "PROTOLYTE_LOG_LEVEL": log_level,
             "OPENBLAS_NUM_THREADS": "1",
             "OMP_NUM_THREADS": "1",
-            # the checkout's own code, not whatever tree the venv's editable install names
-            "PYTHONPATH": os.pathsep.join(p for p in (str(ROOT), os.environ.get("PYTHONPATH", "")) if p),
             **env,
         }
         full.pop("PROMETHEUS_MULTIPROC_DIR", None)
