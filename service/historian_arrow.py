@@ -134,8 +134,7 @@ def solve_chunk(data: bytes, lines: int, header: Sequence[str], mapping: Mapping
     columns.append(pc.cast(pa.array(np.arange(first_row, first_row + n, dtype=np.int64)), pa.string(), memory_pool=_POOL))
     columns.append(pc.if_else(pa.array(sol.ok), pa.scalar("true"), pa.scalar("false"), memory_pool=_POOL))
     for c in h._NUMERIC_OUT:
-        chars, length = format_g10(sol.numbers[c]) if sol.solved_rows.size else (np.zeros((0, 1), np.uint8), np.zeros(0, np.int64))
-        columns.append(_fixed_strings(chars, length, sol.solved_rows, n))
+        columns.append(_fixed_strings(*format_g10(sol.numbers[c]), sol.solved_rows, n))  # none solved: all ""
     if sol.checked_rows.size == n:
         columns.append(pc.cast(pa.array(sol.iterations.astype(np.int64)), pa.string(), memory_pool=_POOL))
     else:
