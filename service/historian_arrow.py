@@ -31,7 +31,7 @@ try:
 except ImportError:  # the optional [parquet] extra: without it the Python path does it all
     pa = pc = pacsv = None
 
-__all__ = ["available", "solve_chunk", "usable"]
+__all__ = ["solve_chunk", "usable"]
 
 #: pyarrow allocations of the back-fill: the system allocator, which returns a finished
 #: chunk's memory (pyarrow's default mimalloc pool kept ~50 MB more resident).
@@ -39,11 +39,6 @@ _POOL = pa.system_memory_pool() if pa is not None else None
 
 #: Rows joined per pyarrow call (keeps a string array far below its 2 GiB offset limit).
 JOIN_ROWS = 1 << 20
-
-
-def available() -> bool:
-    """pyarrow can be imported."""
-    return pa is not None
 
 
 def usable(data: bytes) -> bool:
