@@ -56,7 +56,7 @@ from models.stream import ACTIVITY_MODELS
 from models.thermo import load_database
 from models.units import UNITS
 from service import historian_arrow
-from service.historian_format import format_g10_str
+from service.historian_format import format_g10_str  # '%.10g': far finer than any model's accuracy
 
 __all__ = [
     "DEFAULT_THREADS",
@@ -88,7 +88,6 @@ __all__ = [
 VALUE_MAX = 1.0e6
 TEMPERATURE_RANGE_C = (0.0, 100.0)
 CO2_MAX_ATM = 10.0
-_FLOAT = "%.10g"  # 10 significant digits: far finer than any model's accuracy
 
 #: Result columns written after the timestamp and passed-through columns.
 RESULT_COLUMNS: tuple[str, ...] = (

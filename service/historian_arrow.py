@@ -31,7 +31,7 @@ try:
 except ImportError:  # the optional [parquet] extra: without it the Python path does it all
     pa = pc = pacsv = None
 
-__all__ = ["available", "solve_chunk", "usable"]
+__all__ = ["solve_chunk", "usable"]
 
 #: pyarrow allocations of the back-fill: the system allocator, which returns a finished
 #: chunk's memory (pyarrow's default mimalloc pool kept ~50 MB more resident).
@@ -39,11 +39,6 @@ _POOL = pa.system_memory_pool() if pa is not None else None
 
 #: Rows joined per pyarrow call (keeps a string array far below its 2 GiB offset limit).
 JOIN_ROWS = 1 << 20
-
-
-def available() -> bool:
-    """pyarrow can be imported."""
-    return pa is not None
 
 
 def usable(data: bytes) -> bool:
@@ -134,8 +129,7 @@ def solve_chunk(data: bytes, lines: int, header: Sequence[str], mapping: Mapping
     columns.append(pc.cast(pa.array(np.arange(first_row, first_row + n, dtype=np.int64)), pa.string(), memory_pool=_POOL))
     columns.append(pc.if_else(pa.array(sol.ok), pa.scalar("true"), pa.scalar("false"), memory_pool=_POOL))
     for c in h._NUMERIC_OUT:
-        chars, length = format_g10(sol.numbers[c]) if sol.solved_rows.size else (np.zeros((0, 1), np.uint8), np.zeros(0, np.int64))
-        columns.append(_fixed_strings(chars, length, sol.solved_rows, n))
+        columns.append(_fixed_strings(*format_g10(sol.numbers[c]), sol.solved_rows, n))  # none solved: all ""
     if sol.checked_rows.size == n:
         columns.append(pc.cast(pa.array(sol.iterations.astype(np.int64)), pa.string(), memory_pool=_POOL))
     else:

@@ -11,6 +11,8 @@ formatted by Python itself. The digits are then laid out with column slices, onc
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 from numpy.typing import NDArray
 
@@ -22,18 +24,14 @@ _P10 = np.array([float(10**k) for k in range(23)])  # exact powers of ten
 _TIE_MARGIN = 1e-4  # the scaled value's error is below ~5e-6 (two roundings, < 1e10)
 _ZERO = ord("0")
 _EMIN, _EMAX = -36, 55  # decimal exponents the fast path can produce
-_cache: dict[str, NDArray] = {}
 
 
+@functools.cache
 def _digits5() -> NDArray[np.bytes_]:
     """Item i: the five ASCII digits of i (zero-padded) as one S5 item, for i < 100 000."""
-    t = _cache.get("digits5")
-    if t is None:
-        i = np.arange(100_000)
-        d = ((i[:, None] // np.array([10_000, 1000, 100, 10, 1])) % 10 + _ZERO).astype(np.uint8)
-        t = np.ascontiguousarray(d).view("S5").ravel()
-        _cache["digits5"] = t
-    return t
+    i = np.arange(100_000)
+    d = ((i[:, None] // np.array([10_000, 1000, 100, 10, 1])) % 10 + _ZERO).astype(np.uint8)
+    return np.ascontiguousarray(d).view("S5").ravel()
 
 
 def _scale(a: NDArray, s: NDArray) -> NDArray:

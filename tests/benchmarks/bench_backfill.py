@@ -27,8 +27,8 @@ import time
 from pathlib import Path
 
 
-ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+from _server import ROOT, tree_env  # noqa: E402
 from demo_sump import MAPPING, generate  # noqa: E402
 
 
@@ -54,7 +54,7 @@ runpy.run_module('service.cli', run_name='__main__')
 def run(cmd: list[str], tree: Path) -> tuple[float, str, float, float]:
     """Wall time [s], summary line, peak RSS [MB] and CPU time [s] of ``protolyte ARGS``
     (``cmd`` = [python, -m, service.cli, ARGS…]) importing ``tree``'s code."""
-    env = {**os.environ, "PYTHONPATH": str(tree)}
+    env = tree_env(tree)
     start = time.perf_counter()
     proc = subprocess.run([cmd[0], "-c", _WRAPPER, *cmd[3:]], capture_output=True, text=True, env=env, cwd=tree, check=False)
     elapsed = time.perf_counter() - start

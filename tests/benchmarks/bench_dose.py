@@ -52,16 +52,6 @@ def streams(n: int, seed: int = 6) -> list[StreamSpec]:
     ]
 
 
-def cpu_best(fn, repeat: int) -> float:
-    """Best CPU time [s] of this process over ``repeat`` calls of ``fn``."""
-    t_best = float("inf")
-    for _ in range(repeat):
-        t0 = time.process_time()
-        fn()
-        t_best = min(t_best, time.process_time() - t0)
-    return t_best
-
-
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--streams", type=int, default=10_000)
@@ -75,8 +65,8 @@ def main() -> int:
     plan_doses(specs[:10], reagent, args.setpoint, db)  # warm caches
     t_dose, plans = best(lambda: plan_doses(specs, reagent, args.setpoint, db), args.repeat)
     t_eq, _ = best(lambda: solve_many(specs, db), args.repeat)
-    cpu_dose = cpu_best(lambda: plan_doses(specs, reagent, args.setpoint, db), args.repeat)
-    cpu_eq = cpu_best(lambda: solve_many(specs, db), args.repeat)
+    cpu_dose, _ = best(lambda: plan_doses(specs, reagent, args.setpoint, db), args.repeat, time.process_time)
+    cpu_eq, _ = best(lambda: solve_many(specs, db), args.repeat, time.process_time)
     kinds = Counter(type(p).__name__ for p in plans)
     print(f"plan_doses, {args.streams} streams, {args.reagent} to pH {args.setpoint:g}, one core, "
           f"{os.cpu_count()} cores on the machine; best of {args.repeat}")

@@ -27,9 +27,9 @@ import json  # noqa: E402
 import subprocess  # noqa: E402
 import sys  # noqa: E402
 import time  # noqa: E402
-from pathlib import Path  # noqa: E402
 
-ROOT = Path(__file__).resolve().parents[2]
+from _server import ROOT, tree_env  # noqa: E402
+
 SIZES = (1, 5, 25, 100)
 
 
@@ -69,10 +69,9 @@ def measure(repeat: int, budget: float) -> dict[str, float]:
 
 
 def run_tree(tree: str, repeat: int, budget: float) -> dict[str, float]:
-    env = dict(os.environ, PYTHONPATH=tree)
     got = subprocess.run(
         [sys.executable, __file__, "--json", "--repeat", str(repeat), "--budget", str(budget)],
-        cwd=tree, env=env, check=True, capture_output=True, text=True,
+        cwd=tree, env=tree_env(tree), check=True, capture_output=True, text=True,
     )
     return json.loads(got.stdout)
 
