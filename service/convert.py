@@ -3,11 +3,11 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Iterable
-from dataclasses import fields
+from collections.abc import Iterable
 from operator import attrgetter
 from typing import Any
 
+from models.records import slot_builder
 from models.results import EquilibriumResult
 from models.stream import CustomSystem, Entry, StreamSpec
 from service.schemas import EquilibriumResponse, Stream
@@ -26,23 +26,9 @@ class NonFiniteResult(RuntimeError):
     """The core returned a non-finite number as a result: a defect, never sent as data."""
 
 
-def _slot_builder(cls: type) -> Callable[..., Any]:
-    """A constructor of the frozen slots dataclass ``cls`` taking every field (by position
-    in declaration order, or by keyword), filling the slots directly instead of going
-    through the frozen ``__setattr__`` guard. The record equals ``cls(...)`` with the same
-    arguments (``tests/test_service_convert.py`` pins it); the classes have no
-    ``__post_init__``. For :func:`to_spec`, which builds ~100 000 records per batch."""
-    names = [f.name for f in fields(cls)]
-    env = {f"_set_{n}": cls.__dict__[n].__set__ for n in names}
-    env.update(_new=object.__new__, _cls=cls)
-    body = "; ".join(f"_set_{n}(o, {n})" for n in names)
-    exec(f"def build({', '.join(names)}):\n    o = _new(_cls); {body}; return o", env)  # noqa: S102
-    return env["build"]
-
-
-_new_entry = _slot_builder(Entry)
-_new_custom = _slot_builder(CustomSystem)
-_new_spec = _slot_builder(StreamSpec)
+_new_entry = slot_builder(Entry)
+_new_custom = slot_builder(CustomSystem)
+_new_spec = slot_builder(StreamSpec)
 
 
 def to_spec(stream: Stream) -> StreamSpec:

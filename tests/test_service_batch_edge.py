@@ -17,15 +17,14 @@ import orjson
 import pytest
 
 from models.equilibrium import solve_many
+from models.records import slot_builder
 from models.results import EquilibriumResult
 from models.stream import CustomSystem, Entry, StreamSpec
-
-from service.convert import NonFiniteResult, _slot_builder, response_dict, to_spec
-from service.problems import make_problem, summarise
 from service.checks import structural_errors
+from service.convert import NonFiniteResult, response_dict, to_spec
+from service.problems import make_problem, summarise
 from service.routes_equilibrium import gc_paused, loads_like_json
 from service.schemas import BatchItemError, BatchRequest, Stream
-
 from tests.conftest import CREAMERY_STREAM
 
 
@@ -75,7 +74,7 @@ def _items() -> list[dict[str, Any]]:
 
 @pytest.mark.parametrize("cls", [Entry, CustomSystem, StreamSpec])
 def test_slot_builder_builds_the_class_record(cls: type) -> None:
-    build = _slot_builder(cls)
+    build = slot_builder(cls)
     values = [object() for _ in dataclasses.fields(cls)]
     got = build(*values)
     assert type(got) is cls and got == cls(*values)
