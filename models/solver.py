@@ -209,18 +209,6 @@ class BalanceKernel:
         self.strong_neg = np.maximum(-p.strong_charge, 0.0)
         self.code = _single_code(p.activity_code)
 
-    def take(self, idx: NDArray[np.int_]) -> BalanceKernel:
-        k = object.__new__(BalanceKernel)
-        k.p = self.p.take(idx)
-        k.steps, k.steps_sq, k.steps_ln10 = self.steps, self.steps_sq, self.steps_ln10
-        for name in ("cum_ln10", "top", "z2", "zpos", "zposj", "strong_pos", "strong_neg"):
-            setattr(k, name, getattr(self, name)[idx])
-        k.any_pos = bool(k.zpos.any())
-        k.top_max = self.top_max
-        k.any_open = bool(k.p.is_open.any())
-        k.code = self.code
-        return k
-
     def log_gammas(self, ionic: NDArray) -> tuple[NDArray | None, NDArray, NDArray]:
         """log10 γ of system species (None when ideal), of H+ and of OH−."""
         if self.code == IDEAL:
@@ -508,7 +496,6 @@ class _LoopKernel:
             a_sys = _sum_slots(sp)
             c_sys = _sum_slots(s * szpj - sp * jbar)
         return self._close(ph, lh, loh, a_sys, b_sys, c_sys, d_sys, e_sys, f_i if slope else None)
-
 
     def _evaluate_stacked(self, ph: NDArray, ionic: NDArray, slope: bool):
         """``evaluate`` for a few streams without open systems or positive species beyond
