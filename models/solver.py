@@ -100,8 +100,8 @@ class BalanceProblem:
     def n_streams(self) -> int:
         return int(self.strong_charge.shape[0])
 
-    def take(self, idx: NDArray[np.int_]) -> BalanceProblem:
-        """The sub-problem of the streams at ``idx``."""
+    def take(self, idx: NDArray[np.int_] | slice) -> BalanceProblem:
+        """The sub-problem of the streams at ``idx`` (a slice gives views, no copies)."""
         return BalanceProblem(**{k: getattr(self, k)[idx] for k in self.__dataclass_fields__})
 
 
@@ -602,7 +602,7 @@ def solve_balance(
     for start in range(0, n, SLICE_STREAMS):
         idx = slice(start, min(n, start + SLICE_STREAMS))
         part = _solve_slice(
-            BalanceProblem(**{f: getattr(p, f)[idx] for f in BalanceProblem.__dataclass_fields__}),
+            p.take(idx),
             None if ph_guess is None else ph_guess[idx],
             None if ionic_guess is None else ionic_guess[idx],
         )
