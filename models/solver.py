@@ -127,6 +127,12 @@ def _single_code(codes: NDArray[np.int_]) -> int | None:
     return None
 
 
+def _davies(a_dh: NDArray, ionic: NDArray) -> NDArray:
+    """log10 γ of a singly charged ion under Davies (× z² for charge z), per stream."""
+    sqrt_i = np.sqrt(ionic)
+    return -a_dh * (sqrt_i / (1.0 + sqrt_i) - DAVIES_LINEAR_TERM * ionic)
+
+
 def gammas(p: BalanceProblem, ionic: NDArray) -> tuple[NDArray, NDArray, NDArray]:
     lg = log_gamma(p.charge, p.ion_size, ionic, p.a_dh, p.b_dh, p.activity_code)
     one = np.ones_like(ionic)
@@ -215,8 +221,7 @@ class BalanceKernel:
             zero = np.zeros_like(ionic)
             return None, zero, zero
         if self.code == DAVIES:
-            sqrt_i = np.sqrt(ionic)
-            g = -self.p.a_dh * (sqrt_i / (1.0 + sqrt_i) - DAVIES_LINEAR_TERM * ionic)
+            g = _davies(self.p.a_dh, ionic)
             return self.z2 * g[:, None, None], g, g
         return gammas(self.p, ionic)
 
@@ -378,8 +383,7 @@ class _LoopKernel:
             zero = np.zeros_like(ionic)
             return zero, zero
         if self.code == DAVIES:
-            sqrt_i = np.sqrt(ionic)
-            g = -self.a_dh * (sqrt_i / (1.0 + sqrt_i) - DAVIES_LINEAR_TERM * ionic)
+            g = _davies(self.a_dh, ionic)
             return g, g
         if self.code == EXTENDED_DH:
             sqrt_i = np.sqrt(ionic)
@@ -741,7 +745,6 @@ def _log_gamma_species(p: BalanceProblem, code: int | None, ionic: NDArray) -> N
     if code == IDEAL:
         return np.zeros(p.charge.shape)
     if code == DAVIES:
-        sqrt_i = np.sqrt(ionic)
-        g = -p.a_dh * (sqrt_i / (1.0 + sqrt_i) - DAVIES_LINEAR_TERM * ionic)
+        g = _davies(p.a_dh, ionic)
         return p.charge * p.charge * g[:, None, None]
     return gammas(p, ionic)[0]
