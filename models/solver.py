@@ -282,7 +282,7 @@ class BalanceKernel:
 
 
 def _sum_slots(a: NDArray) -> NDArray:
-    """Σ over the slot axis of a (K, N) array, one slot after the other: numpy's own sum
+    """Σ over axis 0 (slots of a (K, N) array), one row after the other: numpy's own sum
     over axis 0 is pairwise from 8 slots on for a single stream (a contiguous column) but
     sequential for many, which would make a stream's rounding depend on its batch."""
     if a.shape[0] == 1:
@@ -521,7 +521,6 @@ class _LoopKernel:
                     w[:, r] = self.kc[:, r] * np.exp(e + jg * self.two_top[r])
         else:
             w, lh, loh = self._weights(ph, ionic)
-        n_j = w.shape[0]
         # a[i, j-1] = w_j · j^i, i = 0…3 (a[0, 0] carries the + 1 of species 0).
         a = np.empty((4,) + w.shape)
         np.add(w[0], 1.0, out=a[0, 0])
@@ -529,12 +528,7 @@ class _LoopKernel:
         np.multiply(w, self.jj3, out=a[1])
         np.multiply(a[1], self.jj3, out=a[2])
         np.multiply(a[2], self.jj3, out=a[3])
-        if n_j == 1:
-            mom = a[:, 0]
-        else:
-            mom = a[:, 0] + a[:, 1]
-            for j in range(2, n_j):
-                mom += a[:, j]
+        mom = _sum_slots(a.swapaxes(0, 1))  # over species j, one after the other
         inv = 1.0 / mom[0]
         jbar = mom[1] * inv
         s = self.total * inv
@@ -543,13 +537,7 @@ class _LoopKernel:
         np.multiply(s, mom[1:], out=b[:3])
         np.multiply(b[:2], jbar, out=b[3:])
         np.subtract(b[1:3], b[3:], out=b[3:])
-        n_k = s.shape[0]
-        if n_k == 1:
-            sums = b[:, 0].copy()
-        else:
-            sums = b[:, 0] + b[:, 1]
-            for k in range(2, n_k):
-                sums += b[:, k]
+        sums = _sum_slots(b.swapaxes(0, 1))
         sums[1] += self.sum_tt2
         for r in self.top_rows:
             # e_sys −= 2t·x1 and f_i −= 2t·d2 on this slot.
