@@ -53,7 +53,7 @@ class Derived:
     warnings: list[list[str]]
     #: Molalities of system species (N, K, P), H+ and OH− at the solved state, as
     #: ``models.solver.species_state`` gives them (shared with the result tables).
-    species: tuple[NDArray, NDArray, NDArray] | None = None
+    species: tuple[NDArray, NDArray, NDArray]
 
 
 #: Batches up to this many streams evaluate several states in one stacked numpy pass;

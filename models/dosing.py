@@ -98,7 +98,6 @@ class DoseCurve:
     equivalence_ph: tuple[float, ...]
 
 
-
 def _ph_text(ph: float, digits: int = 2) -> str:
     """A pH for a message: fixed decimals, and never "-0.00"."""
     text = f"{ph:.{digits}f}"
@@ -114,11 +113,18 @@ def _distinct_ph(a: float, b: float) -> tuple[str, str]:
             break
     return sa, sb
 
-def _with_reagent_slots(spec: StreamSpec, reagent: Reagent, db: ThermoDatabase) -> StreamSpec:
+
+def _reagent_slots(reagent: Reagent, db: ThermoDatabase) -> tuple[str, ...]:
+    """The systems whose totals ``reagent`` adds to (each needs a slot in the stream)."""
+    return tuple(x for x in reagent.adds if x in db.systems)
+
+
+def _with_reagent_slots(spec: StreamSpec, slots: tuple[str, ...]) -> StreamSpec:
+    """``spec`` with a zero entry for each of ``slots`` it does not list."""
+    if not slots:
+        return spec
     names = {e.name for e in spec.composition}
-    extra = tuple(
-        Entry(x, 0.0, "mol/L") for x in reagent.adds if x in db.systems and x not in names
-    )
+    extra = tuple(Entry(x, 0.0, "mol/L") for x in slots if x not in names)
     return replace(spec, composition=spec.composition + extra) if extra else spec
 
 
@@ -425,19 +431,15 @@ def plan_doses(
     out: list[DosePlan | Exception | None] = [None] * n
     parsed: list[ParsedStream] = []
     where: list[int] = []
-    slots = tuple(x for x in reagent.adds if x in db.systems)  # totals the reagent adds to
+    slots = _reagent_slots(reagent, db)
     for i, spec in enumerate(specs):
         try:
-            names = [e.name for e in spec.composition]
-            if spec.balance_on is not None or "alkalinity" in names:
+            if spec.balance_on is not None or any(e.name == "alkalinity" for e in spec.composition):
                 raise InputError(
                     "dose a calibrated analysis: calibrate with POST /v1/equilibrium first and "
                     "post the closed composition", "/stream/balance_on",
                 )
-            extra = tuple(Entry(x, 0.0, "mol/L") for x in slots if x not in names) if slots else ()
-            parsed.append(
-                parse_stream(replace(spec, composition=spec.composition + extra) if extra else spec, db)
-            )
+            parsed.append(parse_stream(_with_reagent_slots(spec, slots), db))
             where.append(i)
         except InputError as exc:
             out[i] = exc
@@ -586,7 +588,7 @@ def dose_curve(
 ) -> DoseCurve:
     """pH and β of one stream at each dose, all doses in one vectorized solve."""
     db = db or load_database()
-    ps = parse_stream(_with_reagent_slots(spec, reagent, db), db)
+    ps = parse_stream(_with_reagent_slots(spec, _reagent_slots(reagent, db)), db)
     doses = np.asarray(doses_mol_l, dtype=float)
     sv = solve_arrays([ps] * doses.size, db)
     asm, p = sv.assembled, sv.problem

@@ -41,7 +41,6 @@ from models.solver import (
     balance,
     gammas,
     solve_balance,
-    species_state,
 )
 from models.stream import ACTIVITY_MODELS, StreamSpec
 from models.thermo import ThermoDatabase, load_database
@@ -236,10 +235,7 @@ class _Tables:
     @staticmethod
     def of(sv: Solved, ex: derived.Derived) -> _Tables:
         st, p, rho = sv.state, sv.problem, sv.assembled.density_kg_l
-        if ex.species is not None:
-            m, m_h, m_oh = ex.species
-        else:
-            m, m_h, m_oh = species_state(p, st.ph, st.log_gamma_species, st.log_gamma_h, st.log_gamma_oh)
+        m, m_h, m_oh = ex.species
         tot = m.sum(axis=-1)
         with np.errstate(invalid="ignore", divide="ignore"):
             frac = np.where(tot[..., None] > 0, m / tot[..., None], 0.0)

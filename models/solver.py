@@ -100,8 +100,8 @@ class BalanceProblem:
     def n_streams(self) -> int:
         return int(self.strong_charge.shape[0])
 
-    def take(self, idx: NDArray[np.int_]) -> BalanceProblem:
-        """The sub-problem of the streams at ``idx``."""
+    def take(self, idx: NDArray[np.int_] | slice) -> BalanceProblem:
+        """The sub-problem of the streams at ``idx`` (a slice gives views, no copies)."""
         return BalanceProblem(**{k: getattr(self, k)[idx] for k in self.__dataclass_fields__})
 
 
@@ -125,6 +125,12 @@ def _single_code(codes: NDArray[np.int_]) -> int | None:
     if codes.size and (codes == codes[0]).all():
         return int(codes[0])
     return None
+
+
+def _davies(a_dh: NDArray, ionic: NDArray) -> NDArray:
+    """log10 γ of a singly charged ion under Davies (× z² for charge z), per stream."""
+    sqrt_i = np.sqrt(ionic)
+    return -a_dh * (sqrt_i / (1.0 + sqrt_i) - DAVIES_LINEAR_TERM * ionic)
 
 
 def gammas(p: BalanceProblem, ionic: NDArray) -> tuple[NDArray, NDArray, NDArray]:
@@ -209,26 +215,13 @@ class BalanceKernel:
         self.strong_neg = np.maximum(-p.strong_charge, 0.0)
         self.code = _single_code(p.activity_code)
 
-    def take(self, idx: NDArray[np.int_]) -> BalanceKernel:
-        k = object.__new__(BalanceKernel)
-        k.p = self.p.take(idx)
-        k.steps, k.steps_sq, k.steps_ln10 = self.steps, self.steps_sq, self.steps_ln10
-        for name in ("cum_ln10", "top", "z2", "zpos", "zposj", "strong_pos", "strong_neg"):
-            setattr(k, name, getattr(self, name)[idx])
-        k.any_pos = bool(k.zpos.any())
-        k.top_max = self.top_max
-        k.any_open = bool(k.p.is_open.any())
-        k.code = self.code
-        return k
-
     def log_gammas(self, ionic: NDArray) -> tuple[NDArray | None, NDArray, NDArray]:
         """log10 γ of system species (None when ideal), of H+ and of OH−."""
         if self.code == IDEAL:
             zero = np.zeros_like(ionic)
             return None, zero, zero
         if self.code == DAVIES:
-            sqrt_i = np.sqrt(ionic)
-            g = -self.p.a_dh * (sqrt_i / (1.0 + sqrt_i) - DAVIES_LINEAR_TERM * ionic)
+            g = _davies(self.p.a_dh, ionic)
             return self.z2 * g[:, None, None], g, g
         return gammas(self.p, ionic)
 
@@ -289,7 +282,7 @@ class BalanceKernel:
 
 
 def _sum_slots(a: NDArray) -> NDArray:
-    """Σ over the slot axis of a (K, N) array, one slot after the other: numpy's own sum
+    """Σ over axis 0 (slots of a (K, N) array), one row after the other: numpy's own sum
     over axis 0 is pairwise from 8 slots on for a single stream (a contiguous column) but
     sequential for many, which would make a stream's rounding depend on its batch."""
     if a.shape[0] == 1:
@@ -390,8 +383,7 @@ class _LoopKernel:
             zero = np.zeros_like(ionic)
             return zero, zero
         if self.code == DAVIES:
-            sqrt_i = np.sqrt(ionic)
-            g = -self.a_dh * (sqrt_i / (1.0 + sqrt_i) - DAVIES_LINEAR_TERM * ionic)
+            g = _davies(self.a_dh, ionic)
             return g, g
         if self.code == EXTENDED_DH:
             sqrt_i = np.sqrt(ionic)
@@ -509,7 +501,6 @@ class _LoopKernel:
             c_sys = _sum_slots(s * szpj - sp * jbar)
         return self._close(ph, lh, loh, a_sys, b_sys, c_sys, d_sys, e_sys, f_i if slope else None)
 
-
     def _evaluate_stacked(self, ph: NDArray, ionic: NDArray, slope: bool):
         """``evaluate`` for a few streams without open systems or positive species beyond
         species 0, with the per-species and per-slot quantities stacked so that one numpy
@@ -530,7 +521,6 @@ class _LoopKernel:
                     w[:, r] = self.kc[:, r] * np.exp(e + jg * self.two_top[r])
         else:
             w, lh, loh = self._weights(ph, ionic)
-        n_j = w.shape[0]
         # a[i, j-1] = w_j · j^i, i = 0…3 (a[0, 0] carries the + 1 of species 0).
         a = np.empty((4,) + w.shape)
         np.add(w[0], 1.0, out=a[0, 0])
@@ -538,12 +528,7 @@ class _LoopKernel:
         np.multiply(w, self.jj3, out=a[1])
         np.multiply(a[1], self.jj3, out=a[2])
         np.multiply(a[2], self.jj3, out=a[3])
-        if n_j == 1:
-            mom = a[:, 0]
-        else:
-            mom = a[:, 0] + a[:, 1]
-            for j in range(2, n_j):
-                mom += a[:, j]
+        mom = _sum_slots(a.swapaxes(0, 1))  # over species j, one after the other
         inv = 1.0 / mom[0]
         jbar = mom[1] * inv
         s = self.total * inv
@@ -552,13 +537,7 @@ class _LoopKernel:
         np.multiply(s, mom[1:], out=b[:3])
         np.multiply(b[:2], jbar, out=b[3:])
         np.subtract(b[1:3], b[3:], out=b[3:])
-        n_k = s.shape[0]
-        if n_k == 1:
-            sums = b[:, 0].copy()
-        else:
-            sums = b[:, 0] + b[:, 1]
-            for k in range(2, n_k):
-                sums += b[:, k]
+        sums = _sum_slots(b.swapaxes(0, 1))
         sums[1] += self.sum_tt2
         for r in self.top_rows:
             # e_sys −= 2t·x1 and f_i −= 2t·d2 on this slot.
@@ -615,7 +594,7 @@ def solve_balance(
     for start in range(0, n, SLICE_STREAMS):
         idx = slice(start, min(n, start + SLICE_STREAMS))
         part = _solve_slice(
-            BalanceProblem(**{f: getattr(p, f)[idx] for f in BalanceProblem.__dataclass_fields__}),
+            p.take(idx),
             None if ph_guess is None else ph_guess[idx],
             None if ionic_guess is None else ionic_guess[idx],
         )
@@ -754,7 +733,6 @@ def _log_gamma_species(p: BalanceProblem, code: int | None, ionic: NDArray) -> N
     if code == IDEAL:
         return np.zeros(p.charge.shape)
     if code == DAVIES:
-        sqrt_i = np.sqrt(ionic)
-        g = -p.a_dh * (sqrt_i / (1.0 + sqrt_i) - DAVIES_LINEAR_TERM * ionic)
+        g = _davies(p.a_dh, ionic)
         return p.charge * p.charge * g[:, None, None]
     return gammas(p, ionic)[0]
