@@ -6,9 +6,10 @@ For each stream the unknown is pH = −log10 a(H+). The charge balance
 
 (S: net strong-ion charge [eq/kg]; T_k: total of system k [mol/kg]; z̄_k: its mean
 charge) decreases strictly with pH at fixed activity coefficients, so a bracketed,
-safeguarded Newton iteration on [PH_MIN, PH_MAX] always converges. Ionic strength is
-made self-consistent by an outer fixed-point iteration; activity coefficients are held
-during each inner solve. A system open to a gas phase (carbonate with a CO2 partial
+safeguarded Newton iteration on [PH_MIN, PH_MAX] always converges. The ionic strength
+is updated in the same loop (carried to each new pH by dI/dpH), the bracket widened by
+the root's possible shift with γ; a stream not settled after JOINT_STEPS falls back to
+nested iteration (ionic strength held until its pH has converged). A system open to a gas phase (carbonate with a CO2 partial
 pressure) has a fixed amount of its neutral form instead of a fixed total.
 
 Arrays: N streams, K system slots per stream, P = max steps + 1 species per slot.
