@@ -42,6 +42,10 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--port", type=int, help="TCP port (default PROTOLYTE_PORT or 8000)")
     serve.add_argument("--workers", type=int, help="worker processes (default PROTOLYTE_WORKERS or 1)")
     serve.add_argument("--log-level", choices=[lv.lower() for lv in LOG_LEVELS], help="log level")
+    serve.add_argument(
+        "--cpu-affinity",
+        help="off, auto or CPU numbers like 0,2: one CPU per worker process (default PROTOLYTE_CPU_AFFINITY or off; see service/affinity.py)",
+    )
 
     api = sub.add_parser("openapi", help="write the OpenAPI document")
     api.add_argument("--output", type=Path, default=DEFAULT_OPENAPI_PATH, help="file to write (default %(default)s)")
@@ -69,7 +73,11 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _serve(args: argparse.Namespace) -> int:
-    for name, value in (("HOST", args.host), ("PORT", args.port), ("WORKERS", args.workers), ("LOG_LEVEL", args.log_level)):
+    options = (
+        ("HOST", args.host), ("PORT", args.port), ("WORKERS", args.workers), ("LOG_LEVEL", args.log_level),
+        ("CPU_AFFINITY", args.cpu_affinity),
+    )
+    for name, value in options:
         if value is not None:
             os.environ["PROTOLYTE_" + name] = str(value).upper() if name == "LOG_LEVEL" else str(value)
     settings = Settings.from_env()
@@ -85,6 +93,7 @@ def _serve(args: argparse.Namespace) -> int:
         os.execv(sys.executable, argv)
     import uvicorn
 
+    from service.affinity import AffinityError, pin_worker
     from service.http_protocol import HttpToolsProtocol
     from service.logging import configure_logging, skip_unlogged_record_fields
     from service.metrics import multiprocess_dir, prepare_multiprocess_dir
@@ -95,6 +104,11 @@ def _serve(args: argparse.Namespace) -> int:
 
     configure_logging(settings.log_level)
     skip_unlogged_record_fields()
+    try:
+        pin_worker(settings.cpu_affinity, 0)  # before uvicorn starts threads: they inherit it
+    except AffinityError as exc:
+        print(f"protolyte: {exc}", file=sys.stderr)
+        return 2
     uvicorn.run(
         "service.app:app",
         host=settings.host,

@@ -4,21 +4,29 @@ Workers are ``service.gunicorn_worker.ProtolyteWorker`` (``uvicorn_worker.Uvicor
 on uvloop and the one-write-per-response protocol of ``service.http_protocol``). Prometheus multiprocess mode: the
 directory in ``PROMETHEUS_MULTIPROC_DIR`` (default: a fresh one under the temp dir)
 is wiped and created when the master starts, and a dead worker's files are marked
-in ``child_exit``. SIGTERM stops gracefully (``graceful_timeout``).
+in ``child_exit``. SIGTERM stops gracefully (``graceful_timeout``). With
+``PROTOLYTE_CPU_AFFINITY`` set, each worker holds a slot (the lowest no live worker
+holds, so a replacement takes the CPU of the worker it replaces) and pins itself to that
+slot's CPU after the fork (``service.affinity``).
 """
 
 from __future__ import annotations
 
+import itertools
 import os
 import tempfile
 from pathlib import Path
 from typing import Any
 
+from service.affinity import check_cpu_affinity, pin_worker
 from service.logging import skip_unlogged_record_fields
 from service.metrics import prepare_multiprocess_dir
 from service.settings import Settings
 
-__all__ = ["accesslog", "bind", "child_exit", "graceful_timeout", "on_starting", "timeout", "worker_class", "workers"]
+__all__ = [
+    "accesslog", "bind", "child_exit", "graceful_timeout", "on_starting", "post_fork", "pre_fork", "timeout",
+    "worker_class", "workers",
+]
 
 _settings = Settings.from_env()
 
@@ -39,6 +47,7 @@ def _prepare_multiproc_dir() -> str:
 
 
 _prepare_multiproc_dir()
+check_cpu_affinity(_settings.cpu_affinity, workers)  # a setting this host cannot honour stops the master
 skip_unlogged_record_fields()  # in the master; the forked workers inherit it
 
 
@@ -52,3 +61,14 @@ def child_exit(server: Any, worker: Any) -> None:
     from prometheus_client import multiprocess
 
     multiprocess.mark_process_dead(worker.pid)
+
+
+def pre_fork(server: Any, worker: Any) -> None:
+    """Master, before a worker forks: give it the lowest CPU slot no live worker holds."""
+    taken = {getattr(w, "cpu_slot", None) for w in server.WORKERS.values()}
+    worker.cpu_slot = next(i for i in itertools.count() if i not in taken)
+
+
+def post_fork(server: Any, worker: Any) -> None:
+    """In the new worker: pin it to its slot's CPU (when ``PROTOLYTE_CPU_AFFINITY`` says so)."""
+    pin_worker(_settings.cpu_affinity, worker.cpu_slot)

@@ -14,6 +14,7 @@
 | ``PROTOLYTE_COALESCE`` | ``1`` | ``1``: concurrent single-stream solves share one vectorized call; ``0``: each alone |
 | ``PROTOLYTE_COALESCE_MAX_BATCH`` | ``256`` | most single-stream requests solved in one coalesced call |
 | ``PROTOLYTE_FAST_PATH`` | ``1`` | ``1``: a valid ``POST /v1/equilibrium`` skips FastAPI's stack (``service.fastpath``); ``0``: every request takes the full app |
+| ``PROTOLYTE_CPU_AFFINITY`` | ``off`` | ``auto``: worker *i* runs on the *i*-th CPU it may use; ``0,2``: on the listed CPUs in turn; ``off``: the scheduler decides (``service.affinity``) |
 """
 
 from __future__ import annotations
@@ -21,6 +22,8 @@ from __future__ import annotations
 import os
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+
+from service.affinity import OFF, parse_cpu_affinity
 
 __all__ = ["ENV_PREFIX", "LOG_LEVELS", "Settings", "SettingsError"]
 
@@ -86,6 +89,7 @@ class Settings:
     coalesce: bool = True
     coalesce_max_batch: int = 256
     fast_path: bool = True
+    cpu_affinity: str = OFF
 
     def __post_init__(self) -> None:
         if self.log_level not in LOG_LEVELS:
@@ -98,6 +102,12 @@ class Settings:
             raise SettingsError("solve_time_budget_s must be > 0")
         if self.coalesce_max_batch < 1:
             raise SettingsError("coalesce_max_batch must be >= 1")
+        try:
+            normal = parse_cpu_affinity(self.cpu_affinity)
+        except ValueError as exc:
+            raise SettingsError(f"cpu_affinity {exc}") from None
+        if normal != self.cpu_affinity:
+            raise SettingsError(f"cpu_affinity must be given as {normal!r}, got {self.cpu_affinity!r}")
 
     @classmethod
     def from_env(cls, env: Mapping[str, str] | None = None) -> Settings:
@@ -118,4 +128,13 @@ class Settings:
             coalesce=_flag(env, "COALESCE", True),
             coalesce_max_batch=_int(env, "COALESCE_MAX_BATCH", 256, 1),
             fast_path=_flag(env, "FAST_PATH", True),
+            cpu_affinity=_cpu_affinity(env),
         )
+
+
+def _cpu_affinity(env: Mapping[str, str]) -> str:
+    raw = env.get(ENV_PREFIX + "CPU_AFFINITY", "")
+    try:
+        return parse_cpu_affinity(raw)
+    except ValueError as exc:
+        raise SettingsError(f"{ENV_PREFIX}CPU_AFFINITY {exc}") from None

@@ -164,6 +164,19 @@ def _exposition_total(text: str, **labels: str) -> float:
     return total
 
 
+@pytest.mark.skipif(not hasattr(os, "sched_getaffinity"), reason="CPU affinity is Linux only")
+def test_cpu_affinity_auto_pins_each_gunicorn_worker_to_its_own_cpu(tmp_path: Path) -> None:
+    allowed = sorted(os.sched_getaffinity(0))
+    with running_server(tmp_path, workers=2, PROTOLYTE_CPU_AFFINITY="auto") as (proc, port, _):
+        workers = _children(proc.pid)
+        assert len(workers) == 2, f"expected 2 gunicorn workers under {proc.pid}, found {workers}"
+        cpus = sorted(c for pid in workers for c in os.sched_getaffinity(pid))
+        master = os.sched_getaffinity(proc.pid)
+        assert _request(port, "GET", "/v1/systems")[0] == 200
+    assert cpus == sorted(allowed[i % len(allowed)] for i in range(2))  # one CPU each, in slot order
+    assert master == set(allowed)  # the master stays free
+
+
 def test_two_workers_both_serve_and_metrics_sum_over_them(tmp_path: Path) -> None:
     with running_server(tmp_path, workers=2) as (proc, port, metrics_dir):
         workers = _children(proc.pid)

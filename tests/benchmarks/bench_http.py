@@ -1,6 +1,7 @@
 """Single-stream latency and throughput over loopback: POST /v1/equilibrium under ``hey``.
 
     python tests/benchmarks/bench_http.py [--duration 30] [--concurrency 50] [--stream creamery,simple]
+                                          [--cpu-affinity off,auto]
 
 Starts the real server (``protolyte serve``, one worker, 127.0.0.1, a free port), then
 runs the load generator ``hey`` (Debian package ``hey``: ``apt-get install -y hey``) as a
@@ -14,6 +15,10 @@ system, Davies, 31.5 °C); ``simple`` is Na+/Cl-/carbonate at 25 °C. The machin
 cores and hey shares them with the server: compare the figures of one run, and read
 ``server CPU ms/request`` as the cost that scales. It is split into the event-loop
 (main) thread, i.e. the HTTP edge, and the other threads, i.e. the coalesced solves.
+
+Each ``--cpu-affinity`` value (``PROTOLYTE_CPU_AFFINITY``, see ``service/affinity.py``)
+gets its own server, the values taking turns stream by stream; the last lines give
+each value's req/s as a ratio to the first's, measured in the same run.
 """
 
 from __future__ import annotations
@@ -81,49 +86,71 @@ def run_hey(url: str, body: Path, duration_s: int, concurrency: int) -> str:
     return done.stdout
 
 
+def measure(server: Server, body: Path, duration_s: int, concurrency: int) -> dict[str, float]:
+    """One hey run against ``server``: hey's figures and the server's CPU per request."""
+    cpu0 = server.cpu_seconds()
+    loop0, other0 = server.thread_cpu_seconds()
+    out = run_hey(server.url + "/v1/equilibrium", body, duration_s, concurrency)
+    cpu = server.cpu_seconds() - cpu0
+    loop1, other1 = server.thread_cpu_seconds()
+    r = parse_hey(out)
+    answered = r["ok"] + r["non_2xx"]
+    r["cpu_ms_per_request"] = 1e3 * cpu / answered if answered else float("nan")
+    r["loop_ms_per_request"] = 1e3 * (loop1 - loop0) / answered if answered else float("nan")
+    r["other_ms_per_request"] = 1e3 * (other1 - other0) / answered if answered else float("nan")
+    return r
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--duration", type=int, default=30, help="seconds of load per stream (default 30)")
     ap.add_argument("--concurrency", type=int, default=50, help="concurrent clients (default 50)")
     ap.add_argument("--stream", default="creamery,simple", help="comma-separated: creamery, simple")
     ap.add_argument("--log-level", default="INFO", help="server log level (default INFO, as deployed)")
+    ap.add_argument(
+        "--cpu-affinity", default="off,auto",
+        help="comma-separated PROTOLYTE_CPU_AFFINITY values, one server each (default off,auto)",
+    )
     args = ap.parse_args()
     names = [s.strip() for s in args.stream.split(",") if s.strip()]
     for name in names:
         if name not in STREAMS:
             raise SystemExit(f"unknown stream {name!r}; choose from {', '.join(STREAMS)}")
-    server = Server(log_level=args.log_level)
+    pins = [p.strip() for p in args.cpu_affinity.split(",") if p.strip()]
+    servers: dict[str, Server] = {}
     rows = []
+    mem: dict[str, dict[str, float]] = {}
     try:
-        server.wait_ready()
+        for pin in pins:
+            servers[pin] = Server(log_level=args.log_level, PROTOLYTE_CPU_AFFINITY=pin)
+        for server in servers.values():
+            server.wait_ready()
         with tempfile.TemporaryDirectory() as tmp:
             for name in names:
                 body = Path(tmp) / f"{name}.json"
                 body.write_text(json.dumps(STREAMS[name]))
-                run_hey(server.url + "/v1/equilibrium", body, 2, 4)  # warm-up, 2 s
-                cpu0 = server.cpu_seconds()
-                loop0, other0 = server.thread_cpu_seconds()
-                out = run_hey(server.url + "/v1/equilibrium", body, args.duration, args.concurrency)
-                cpu = server.cpu_seconds() - cpu0
-                loop1, other1 = server.thread_cpu_seconds()
-                r = parse_hey(out)
-                answered = r["ok"] + r["non_2xx"]
-                r["cpu_ms_per_request"] = 1e3 * cpu / answered if answered else float("nan")
-                r["loop_ms_per_request"] = 1e3 * (loop1 - loop0) / answered if answered else float("nan")
-                r["other_ms_per_request"] = 1e3 * (other1 - other0) / answered if answered else float("nan")
-                rows.append((name, r))
-        mem = server.memory_mib()
+                for pin, server in servers.items():  # the values take turns: same machine state
+                    run_hey(server.url + "/v1/equilibrium", body, 2, 4)  # warm-up, 2 s
+                    rows.append((name, pin, measure(server, body, args.duration, args.concurrency)))
+        mem = {pin: server.memory_mib() for pin, server in servers.items()}
     finally:
-        server.stop()
+        for server in servers.values():
+            server.stop()
     print(f"POST /v1/equilibrium, one worker, {args.concurrency} clients, {args.duration} s each, "
           f"hey on 127.0.0.1, {os.cpu_count()} cores (absolute figures)")
-    print(f"{'stream':10s} {'req/s':>8s} {'p50 ms':>8s} {'p99 ms':>8s} {'2xx':>8s} {'non-2xx':>8s} "
+    print(f"{'stream':10s} {'affinity':>8s} {'req/s':>8s} {'p50 ms':>8s} {'p99 ms':>8s} {'2xx':>8s} {'non-2xx':>8s} "
           f"{'errors':>7s} {'server CPU ms/req':>18s} {'(loop':>6s} {'solver)':>8s}")
-    for name, r in rows:
-        print(f"{name:10s} {r['rps']:8.1f} {1e3 * r['p50_s']:8.1f} {1e3 * r['p99_s']:8.1f} {r['ok']:8d} "
+    for name, pin, r in rows:
+        print(f"{name:10s} {pin:>8s} {r['rps']:8.1f} {1e3 * r['p50_s']:8.1f} {1e3 * r['p99_s']:8.1f} {r['ok']:8d} "
               f"{r['non_2xx']:8d} {r['errors']:7d} {r['cpu_ms_per_request']:18.2f} "
               f"{r['loop_ms_per_request']:6.2f} {r['other_ms_per_request']:8.2f}")
-    print(f"server memory after the runs: VmRSS {mem.get('VmRSS', 0):.0f} MiB, VmHWM {mem.get('VmHWM', 0):.0f} MiB")
+    for pin, m in mem.items():
+        print(f"server ({pin}) memory after the runs: VmRSS {m.get('VmRSS', 0):.0f} MiB, VmHWM {m.get('VmHWM', 0):.0f} MiB")
+    by = {(name, pin): r for name, pin, r in rows}
+    for name in names:
+        for pin in pins[1:]:
+            ratio = by[(name, pin)]["rps"] / by[(name, pins[0])]["rps"]
+            print(f"ratio {name}: req/s with affinity {pin} / {pins[0]} = {ratio:.2f} (same run)")
     print("targets: >= 800 req/s, p99 <= 20 ms, 0 errors")
     return 0
 
