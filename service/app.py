@@ -77,7 +77,9 @@ def create_app(settings: Settings | None = None, core: Core | None = None) -> Fa
     core = core or default_core()
     state = AppState(core)
     metrics = Metrics(version=state.version)
-    coalescer = Coalescer(core.solve_many, settings.coalesce_max_batch) if settings.coalesce else None
+    coalescer = (
+        Coalescer(core.solve_many, settings.coalesce_max_batch, metrics.observe_group) if settings.coalesce else None
+    )
 
     @asynccontextmanager
     async def lifespan(_: FastAPI) -> AsyncIterator[None]:

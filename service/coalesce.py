@@ -58,10 +58,14 @@ def _expire(fut: asyncio.Future[Outcome]) -> None:
 class Coalescer:
     """A queue of single-stream solves served by one collector task on the event loop."""
 
-    def __init__(self, solve_many: SolveMany, max_batch: int = 256) -> None:
+    def __init__(
+        self, solve_many: SolveMany, max_batch: int = 256, on_group: Callable[[int], None] | None = None
+    ) -> None:
+        """``on_group`` is told each group's size as it is handed to the solver thread."""
         if max_batch < 1:
             raise ValueError("max_batch must be >= 1")
         self._solve_many = solve_many
+        self._on_group = on_group
         self.max_batch = max_batch
         self._pending: deque[tuple[StreamSpec, asyncio.Future[Outcome]]] = deque()
         self._inflight: list[asyncio.Future[Outcome]] = []
@@ -146,6 +150,8 @@ class Coalescer:
             while group := self._take():
                 self._inflight = [fut for _, fut in group]
                 specs = [spec for spec, _ in group]
+                if self._on_group is not None:
+                    self._on_group(len(specs))
                 try:
                     outcomes = await loop.run_in_executor(executor, self._solve_group, specs)
                 except Exception as exc:  # noqa: BLE001 -- a defect of the hop itself: fail this group only

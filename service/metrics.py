@@ -7,6 +7,7 @@ Names are fixed (alert rules are written against them):
 * ``protolyte_solver_iterations`` histogram [iterations per solved stream]
 * ``protolyte_solve_failures_total{reason}`` counter
 * ``protolyte_batch_size`` histogram [items per batch request]
+* ``protolyte_coalesced_group_size`` histogram [single-stream requests solved in one call]
 * ``protolyte_streams_solved_total`` counter
 * ``protolyte_build_info{version,database_version}`` gauge, always 1
 
@@ -45,6 +46,7 @@ METRIC_NAMES: tuple[str, ...] = (
     "protolyte_solver_iterations",
     "protolyte_solve_failures_total",
     "protolyte_batch_size",
+    "protolyte_coalesced_group_size",
     "protolyte_streams_solved_total",
     "protolyte_build_info",
 )
@@ -52,6 +54,7 @@ METRIC_NAMES: tuple[str, ...] = (
 _DURATION_BUCKETS = (0.0005, 0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0, 2.5, 5.0, 10.0, 30.0)
 _ITERATION_BUCKETS = (1, 2, 3, 5, 8, 12, 16, 20, 30, 40, 60, 80, 100, 150, 200)
 _BATCH_BUCKETS = (1, 2, 5, 10, 50, 100, 500, 1000, 2500, 5000, 10000, 25000, 50000, 100000)
+_GROUP_BUCKETS = (1, 2, 4, 8, 16, 32, 64, 128, 256, 512, 1024)
 _REASON_RE = re.compile(r"^[a-z0-9_]{1,40}$")
 
 
@@ -109,6 +112,12 @@ class Metrics:
             buckets=_BATCH_BUCKETS,
             registry=reg,
         )
+        self.group_size = Histogram(
+            "protolyte_coalesced_group_size",
+            "Single-stream requests solved together in one vectorized call (coalescing).",
+            buckets=_GROUP_BUCKETS,
+            registry=reg,
+        )
         self.solved = Counter(
             "protolyte_streams_solved_total",
             "Streams solved successfully.",
@@ -146,6 +155,10 @@ class Metrics:
         """Count one solved stream."""
         self.solved.inc()
         self.iterations.observe(iterations)
+
+    def observe_group(self, size: int) -> None:
+        """Record one coalesced solve of ``size`` requests."""
+        self.group_size.observe(size)
 
     def observe_failure(self, reason: str) -> None:
         """Count one stream that failed, by reason code."""

@@ -39,6 +39,7 @@ DESIGNED: dict[str, tuple[str, frozenset[str]]] = {
     "protolyte_solver_iterations": ("histogram", frozenset()),
     "protolyte_solve_failures": ("counter", frozenset({"reason"})),
     "protolyte_batch_size": ("histogram", frozenset()),
+    "protolyte_coalesced_group_size": ("histogram", frozenset()),
     "protolyte_streams_solved": ("counter", frozenset()),
     "protolyte_build_info": ("gauge", frozenset({"version", "database_version"})),
 }

@@ -146,6 +146,10 @@ async def test_64_concurrent_requests_are_coalesced_and_answer_as_the_direct_pat
     assert metrics.get_sample_value(
         "protolyte_http_requests_total", {"route": "/v1/equilibrium", "method": "POST", "status": "200"}
     ) == 63
+    # every group the core saw is in the group-size histogram: how well coalescing works
+    assert metrics.get_sample_value("protolyte_coalesced_group_size_count") == len(rec.groups)
+    assert metrics.get_sample_value("protolyte_coalesced_group_size_sum") == 64
+    assert metrics.get_sample_value("protolyte_coalesced_group_size_bucket", {"le": "1.0"}) == rec.groups.count(1)
 
 
 async def test_a_bad_item_fails_alone_and_a_defect_is_a_500_for_its_request_only() -> None:

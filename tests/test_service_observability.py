@@ -24,6 +24,7 @@ EXPECTED = (
     "protolyte_solver_iterations",
     "protolyte_solve_failures_total",
     "protolyte_batch_size",
+    "protolyte_coalesced_group_size",
     "protolyte_streams_solved_total",
     "protolyte_build_info",
 )

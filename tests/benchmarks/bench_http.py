@@ -13,7 +13,9 @@ count and the server's CPU time per request; the server is stopped in a ``finall
 Streams: ``creamery`` is the first OpenAPI example of ``Stream`` (nine entries, a custom
 system, Davies, 31.5 °C); ``simple`` is Na+/Cl-/carbonate at 25 °C. The machine has few
 cores and hey shares them with the server: compare the figures of one run, and read
-``server CPU ms/request`` as the cost that scales. It is split into the event-loop
+``server CPU ms/request`` as the cost that scales. ``group`` is the mean number of
+requests per coalesced solve and ``of 1`` the share of solves that had just one (from
+the server's ``protolyte_coalesced_group_size``). It is split into the event-loop
 (main) thread, i.e. the HTTP edge, and the other threads, i.e. the coalesced solves.
 
 Each ``--cpu-affinity`` value (``PROTOLYTE_CPU_AFFINITY``, see ``service/affinity.py``)
@@ -35,7 +37,10 @@ import shutil  # noqa: E402
 import subprocess  # noqa: E402
 import sys  # noqa: E402
 import tempfile  # noqa: E402
+import urllib.request  # noqa: E402
 from pathlib import Path  # noqa: E402
+
+from prometheus_client.parser import text_string_to_metric_families  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _server import ROOT, Server  # noqa: E402
@@ -86,8 +91,26 @@ def run_hey(url: str, body: Path, duration_s: int, concurrency: int) -> str:
     return done.stdout
 
 
+def group_counts(server: Server) -> tuple[float, float, float]:
+    """The server's coalesced solves so far: (groups, requests in them, groups of one)."""
+    with urllib.request.urlopen(server.url + "/metrics", timeout=10) as resp:
+        text = resp.read().decode()
+    got = {"count": 0.0, "sum": 0.0, "one": 0.0}
+    for fam in text_string_to_metric_families(text):
+        for smp in fam.samples:
+            if smp.name == "protolyte_coalesced_group_size_count":
+                got["count"] = smp.value
+            elif smp.name == "protolyte_coalesced_group_size_sum":
+                got["sum"] = smp.value
+            elif smp.name == "protolyte_coalesced_group_size_bucket" and float(smp.labels["le"]) == 1.0:
+                got["one"] = smp.value
+    return got["count"], got["sum"], got["one"]
+
+
 def measure(server: Server, body: Path, duration_s: int, concurrency: int) -> dict[str, float]:
-    """One hey run against ``server``: hey's figures and the server's CPU per request."""
+    """One hey run against ``server``: hey's figures, the server's CPU per request and
+    its coalesced groups (mean size, share of groups of one request)."""
+    groups0 = group_counts(server)
     cpu0 = server.cpu_seconds()
     loop0, other0 = server.thread_cpu_seconds()
     out = run_hey(server.url + "/v1/equilibrium", body, duration_s, concurrency)
@@ -98,6 +121,9 @@ def measure(server: Server, body: Path, duration_s: int, concurrency: int) -> di
     r["cpu_ms_per_request"] = 1e3 * cpu / answered if answered else float("nan")
     r["loop_ms_per_request"] = 1e3 * (loop1 - loop0) / answered if answered else float("nan")
     r["other_ms_per_request"] = 1e3 * (other1 - other0) / answered if answered else float("nan")
+    groups, requests, ones = (b - a for a, b in zip(groups0, group_counts(server)))
+    r["mean_group"] = requests / groups if groups else float("nan")
+    r["groups_of_one"] = ones / groups if groups else float("nan")
     return r
 
 
@@ -139,11 +165,12 @@ def main() -> int:
     print(f"POST /v1/equilibrium, one worker, {args.concurrency} clients, {args.duration} s each, "
           f"hey on 127.0.0.1, {os.cpu_count()} cores (absolute figures)")
     print(f"{'stream':10s} {'affinity':>8s} {'req/s':>8s} {'p50 ms':>8s} {'p99 ms':>8s} {'2xx':>8s} {'non-2xx':>8s} "
-          f"{'errors':>7s} {'server CPU ms/req':>18s} {'(loop':>6s} {'solver)':>8s}")
+          f"{'errors':>7s} {'server CPU ms/req':>18s} {'(loop':>6s} {'solver)':>8s} {'group':>6s} {'of 1':>5s}")
     for name, pin, r in rows:
         print(f"{name:10s} {pin:>8s} {r['rps']:8.1f} {1e3 * r['p50_s']:8.1f} {1e3 * r['p99_s']:8.1f} {r['ok']:8d} "
               f"{r['non_2xx']:8d} {r['errors']:7d} {r['cpu_ms_per_request']:18.2f} "
-              f"{r['loop_ms_per_request']:6.2f} {r['other_ms_per_request']:8.2f}")
+              f"{r['loop_ms_per_request']:6.2f} {r['other_ms_per_request']:8.2f} "
+              f"{r['mean_group']:6.1f} {r['groups_of_one']:5.0%}")
     for pin, m in mem.items():
         print(f"server ({pin}) memory after the runs: VmRSS {m.get('VmRSS', 0):.0f} MiB, VmHWM {m.get('VmHWM', 0):.0f} MiB")
     by = {(name, pin): r for name, pin, r in rows}
