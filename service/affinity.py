@@ -24,7 +24,7 @@ import os
 from collections.abc import Collection
 from pathlib import Path
 
-__all__ = ["AUTO", "OFF", "AffinityError", "check_cpu_affinity", "parse_cpu_affinity", "pin_process", "pin_worker", "worker_cpu"]
+__all__ = ["AUTO", "OFF", "AffinityError", "check_cpu_affinity", "free_slot", "parse_cpu_affinity", "pin_process", "pin_worker", "worker_cpu"]
 
 OFF = "off"
 AUTO = "auto"
@@ -75,6 +75,15 @@ def worker_cpu(setting: str, index: int, allowed: Collection[int]) -> int | None
                 f"may not run on (allowed: {', '.join(map(str, sorted(allowed)))})"
             )
     return cpus[index % len(cpus)]
+
+
+def free_slot(taken: Collection[int | None]) -> int:
+    """The lowest worker slot not in ``taken``: a replacement worker gets the CPU of the
+    worker it replaces, not the next one along."""
+    slot = 0
+    while slot in taken:
+        slot += 1
+    return slot
 
 
 def _allowed() -> set[int]:

@@ -12,13 +12,12 @@ slot's CPU after the fork (``service.affinity``).
 
 from __future__ import annotations
 
-import itertools
 import os
 import tempfile
 from pathlib import Path
 from typing import Any
 
-from service.affinity import check_cpu_affinity, pin_worker
+from service.affinity import check_cpu_affinity, free_slot, pin_worker
 from service.logging import skip_unlogged_record_fields
 from service.metrics import prepare_multiprocess_dir
 from service.settings import Settings
@@ -65,8 +64,7 @@ def child_exit(server: Any, worker: Any) -> None:
 
 def pre_fork(server: Any, worker: Any) -> None:
     """Master, before a worker forks: give it the lowest CPU slot no live worker holds."""
-    taken = {getattr(w, "cpu_slot", None) for w in server.WORKERS.values()}
-    worker.cpu_slot = next(i for i in itertools.count() if i not in taken)
+    worker.cpu_slot = free_slot({getattr(w, "cpu_slot", None) for w in server.WORKERS.values()})
 
 
 def post_fork(server: Any, worker: Any) -> None:
