@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import gc
+import math
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
+from time import perf_counter
 from typing import Any
 
 import anyio.to_thread
@@ -49,10 +51,24 @@ class ProtolyteAPI(FastAPI):
 
     A request the fast path takes is answered without the (pass-through, on its success
     path) error, telemetry and body-limit layers; anything else, FastAPI's own native
-    telemetry being on, or a solve that raises, goes through the whole stack as before.
+    telemetry being on (read at most once per ``TELEMETRY_RECHECK_S``), or a solve that
+    raises, goes through the whole stack as before.
     """
 
     edge: EquilibriumFastPath | None = None
+    #: How long [s] a reading of FastAPI's native-telemetry switch is trusted. Reading it
+    #: asks the OpenTelemetry globals (and the environment) three times, about 9 µs of a
+    #: fast-path request; a provider configured later is seen within this time.
+    TELEMETRY_RECHECK_S = 1.0
+    _telemetry_on = False
+    _telemetry_read_at = -math.inf
+
+    def _telemetry_enabled(self) -> bool:
+        now = perf_counter()
+        if now - self._telemetry_read_at >= self.TELEMETRY_RECHECK_S:
+            self._telemetry_on = bool(self._native_telemetry.enabled())
+            self._telemetry_read_at = now
+        return self._telemetry_on
 
     async def __call__(self, scope: Any, receive: Any, send: Any) -> None:
         edge = self.edge
@@ -61,7 +77,7 @@ class ProtolyteAPI(FastAPI):
             and scope["type"] == "http"
             and "fastapi.telemetry" not in scope
             and edge.takes(scope)
-            and not self._native_telemetry.enabled()
+            and not self._telemetry_enabled()
         ):
             if self.middleware_stack is None:
                 self.middleware_stack = self.build_middleware_stack()

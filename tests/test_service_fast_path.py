@@ -161,6 +161,28 @@ def test_a_valid_request_takes_the_fast_path_and_is_logged_and_counted(
     assert calls == [1]
 
 
+def test_with_native_telemetry_on_requests_take_the_full_stack(
+    make_client: AppFactory, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    served: list[int] = []
+    original = fastpath.EquilibriumFastPath.serve
+
+    async def counted(self: Any, *args: Any) -> None:
+        served.append(1)
+        await original(self, *args)
+
+    monkeypatch.setattr(fastpath.EquilibriumFastPath, "serve", counted)
+    client = make_client()
+    app = client.app
+    assert client.post(PATH, content=json.dumps(CREAMERY_STREAM), headers=JSON).status_code == 200
+    assert served == [1]
+    monkeypatch.setattr(app._native_telemetry, "enabled", lambda: True)  # a provider set up later
+    monkeypatch.setattr(app, "_telemetry_read_at", app._telemetry_read_at - app.TELEMETRY_RECHECK_S)
+    r = client.post(PATH, content=json.dumps(CREAMERY_STREAM), headers=JSON)
+    assert r.status_code == 200
+    assert served == [1]  # seen once the reading is older than TELEMETRY_RECHECK_S: FastAPI's own path
+
+
 def _core_raising(exc: Exception) -> Core:
     real = default_core()
 
