@@ -94,7 +94,9 @@ def create_app(settings: Settings | None = None, core: Core | None = None) -> Fa
     state = AppState(core)
     metrics = Metrics(version=state.version)
     coalescer = (
-        Coalescer(core.solve_many, settings.coalesce_max_batch, metrics.observe_group) if settings.coalesce else None
+        Coalescer(core.solve_many, settings.coalesce_max_batch, metrics.observe_group, settings.coalesce_wait_ms / 1e3)
+        if settings.coalesce
+        else None
     )
 
     @asynccontextmanager

@@ -13,6 +13,7 @@
 | ``PROTOLYTE_SOLVE_TIME_BUDGET_S`` | ``10`` | wall-clock budget of one request's solve [s] |
 | ``PROTOLYTE_COALESCE`` | ``1`` | ``1``: concurrent single-stream solves share one vectorized call; ``0``: each alone |
 | ``PROTOLYTE_COALESCE_MAX_BATCH`` | ``256`` | most single-stream requests solved in one coalesced call |
+| ``PROTOLYTE_COALESCE_WAIT_MS`` | ``20`` | longest wait [ms] for requests still arriving before a coalesced call (``0``: none) |
 | ``PROTOLYTE_FAST_PATH`` | ``1`` | ``1``: a valid ``POST /v1/equilibrium`` skips FastAPI's stack (``service.fastpath``); ``0``: every request takes the full app |
 | ``PROTOLYTE_CPU_AFFINITY`` | ``off`` | ``auto``: worker *i* runs on the *i*-th CPU it may use; ``0,2``: on the listed CPUs in turn; ``off``: the scheduler decides (``service.affinity``) |
 """
@@ -88,6 +89,7 @@ class Settings:
     solve_time_budget_s: float = 10.0
     coalesce: bool = True
     coalesce_max_batch: int = 256
+    coalesce_wait_ms: float = 20.0
     fast_path: bool = True
     cpu_affinity: str = OFF
 
@@ -102,6 +104,8 @@ class Settings:
             raise SettingsError("solve_time_budget_s must be > 0")
         if self.coalesce_max_batch < 1:
             raise SettingsError("coalesce_max_batch must be >= 1")
+        if not 0 <= self.coalesce_wait_ms <= 1000:
+            raise SettingsError(f"coalesce_wait_ms must be 0-1000, got {self.coalesce_wait_ms!r}")
         try:
             normal = parse_cpu_affinity(self.cpu_affinity)
         except ValueError as exc:
@@ -127,6 +131,7 @@ class Settings:
             solve_time_budget_s=_float(env, "SOLVE_TIME_BUDGET_S", 10.0, 0.001),
             coalesce=_flag(env, "COALESCE", True),
             coalesce_max_batch=_int(env, "COALESCE_MAX_BATCH", 256, 1),
+            coalesce_wait_ms=_float(env, "COALESCE_WAIT_MS", 20.0, 0.0),
             fast_path=_flag(env, "FAST_PATH", True),
             cpu_affinity=_cpu_affinity(env),
         )

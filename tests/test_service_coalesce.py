@@ -7,6 +7,7 @@ budget, and shutdown with requests queued answers them instead of hanging.
 
 from __future__ import annotations
 
+import asyncio
 import copy
 import threading
 import time
@@ -230,3 +231,80 @@ async def test_shutdown_with_queued_requests_does_not_hang() -> None:
     assert len(responses) == 10
     for r in responses:
         assert r.status_code == 503 and r.json()["type"] == "urn:protolyte:problem:not-ready"
+
+
+def _spec() -> StreamSpec:
+    from service.convert import to_spec
+    from service.schemas import Stream
+
+    return to_spec(Stream.model_validate(CREAMERY_STREAM))
+
+
+async def _arriving(coalescer: Any, n: int, *, steps_apart: int = 1) -> list[Any]:
+    """``n`` requests submitted one per ``steps_apart`` event-loop steps, as clients answered
+    together send their next requests; their outcomes once all are answered."""
+    spec = _spec()
+    tasks = []
+    for _ in range(n):
+        tasks.append(asyncio.ensure_future(coalescer.submit(spec)))
+        for _ in range(steps_apart):
+            await asyncio.sleep(0)
+    return list(await asyncio.gather(*tasks))
+
+
+async def _with_coalescer(rec: Recorder, collect_s: float, n: int, steps_apart: int = 1) -> list[Any]:
+    from service.coalesce import Coalescer
+
+    coalescer = Coalescer(rec.solve_many, max_batch=256, collect_s=collect_s)
+    await coalescer.start()
+    try:
+        return await _arriving(coalescer, n, steps_apart=steps_apart)
+    finally:
+        await coalescer.stop()
+
+
+async def test_requests_arriving_over_a_few_loop_steps_are_solved_in_one_call() -> None:
+    rec = Recorder()
+    outcomes = await _with_coalescer(rec, collect_s=0.5, n=12)
+    assert rec.groups == [12]
+    assert all(isinstance(o, EquilibriumResult) for o in outcomes)
+
+
+async def test_without_a_wait_the_first_arrival_is_solved_alone() -> None:
+    rec = Recorder()
+    await _with_coalescer(rec, collect_s=0.0, n=12)
+    assert rec.groups[0] == 1 and sum(rec.groups) == 12
+
+
+async def test_the_wait_ends_when_a_loop_step_brings_nothing_new() -> None:
+    rec = Recorder()
+    await _with_coalescer(rec, collect_s=0.5, n=6, steps_apart=3)  # gaps of 3 steps: no company
+    assert rec.groups[0] == 1 and sum(rec.groups) == 6
+
+
+async def test_the_wait_is_bounded_by_collect_s() -> None:
+    from service.coalesce import Coalescer
+
+    rec = Recorder()
+    coalescer = Coalescer(rec.solve_many, max_batch=100_000, collect_s=0.005)
+    await coalescer.start()
+    spec = _spec()
+    tasks = []
+    start = time.perf_counter()
+    try:
+        while not rec.groups:  # a request every loop step, without end: only the bound stops the wait
+            tasks.append(asyncio.ensure_future(coalescer.submit(spec)))
+            await asyncio.sleep(0)
+            assert time.perf_counter() - start < 2.0, "the collector never took a group"
+        await asyncio.gather(*tasks)
+    finally:
+        await coalescer.stop()
+    assert rec.groups[0] < len(tasks)
+
+
+def test_the_wait_is_a_setting_in_milliseconds() -> None:
+    assert Settings.from_env({}).coalesce_wait_ms == 20.0
+    assert Settings.from_env({"PROTOLYTE_COALESCE_WAIT_MS": "0"}).coalesce_wait_ms == 0.0
+    for bad in ("-1", "soon", "nan", "5000"):
+        with pytest.raises(SettingsError, match="(?i)coalesce_wait_ms"):
+            Settings.from_env({"PROTOLYTE_COALESCE_WAIT_MS": bad})
