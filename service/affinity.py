@@ -4,7 +4,7 @@ A worker runs Python on one core at a time (the GIL), in two busy threads: the e
 loop and the coalesced-solve thread (:mod:`service.coalesce`). Left to the scheduler,
 the two are woken on different cores, and every hand-over of the GIL then crosses
 cores (a wake-up of an idle core, cold caches). Pinned to one core, the same worker
-answered about 1.3-1.4x the single-stream requests per second, with a lower p99
+answered 1.15-1.45x the single-stream requests per second, with a lower p99
 (``tests/benchmarks/bench_http.py``, README "Performance").
 
 Pinning is off by default: it only pays when the worker's core is its own (a dedicated
