@@ -134,22 +134,23 @@ def test_cors_requests_take_the_full_app(make_client: AppFactory) -> None:
     assert a.headers["access-control-allow-origin"] == "https://hmi.example"
 
 
-def _count_fallbacks(monkeypatch: pytest.MonkeyPatch) -> list[int]:
+def _count_calls(monkeypatch: pytest.MonkeyPatch, method: str) -> list[int]:
+    """A list that gets a 1 each time ``EquilibriumFastPath.<method>`` is called."""
     calls: list[int] = []
-    original = fastpath.EquilibriumFastPath._fallback
+    original = getattr(fastpath.EquilibriumFastPath, method)
 
     async def counted(self: Any, *args: Any) -> None:
         calls.append(1)
         await original(self, *args)
 
-    monkeypatch.setattr(fastpath.EquilibriumFastPath, "_fallback", counted)
+    monkeypatch.setattr(fastpath.EquilibriumFastPath, method, counted)
     return calls
 
 
 def test_a_valid_request_takes_the_fast_path_and_is_logged_and_counted(
     make_client: AppFactory, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    calls = _count_fallbacks(monkeypatch)
+    calls = _count_calls(monkeypatch, "_fallback")
     client = make_client()
     r = client.post(PATH, content=json.dumps(CREAMERY_STREAM), headers={**JSON, "X-Request-ID": "plc-7.tank_3"})
     assert r.status_code == 200 and r.headers["x-request-id"] == "plc-7.tank_3"
@@ -164,14 +165,7 @@ def test_a_valid_request_takes_the_fast_path_and_is_logged_and_counted(
 def test_with_native_telemetry_on_requests_take_the_full_stack(
     make_client: AppFactory, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    served: list[int] = []
-    original = fastpath.EquilibriumFastPath.serve
-
-    async def counted(self: Any, *args: Any) -> None:
-        served.append(1)
-        await original(self, *args)
-
-    monkeypatch.setattr(fastpath.EquilibriumFastPath, "serve", counted)
+    served = _count_calls(monkeypatch, "serve")
     client = make_client()
     app = client.app
     assert client.post(PATH, content=json.dumps(CREAMERY_STREAM), headers=JSON).status_code == 200
