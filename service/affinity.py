@@ -24,7 +24,9 @@ import os
 from collections.abc import Collection
 from pathlib import Path
 
-__all__ = ["AUTO", "OFF", "AffinityError", "check_cpu_affinity", "free_slot", "parse_cpu_affinity", "pin_process", "pin_worker", "worker_cpu"]
+__all__ = [
+    "AUTO", "OFF", "AffinityError", "check_cpu_affinity", "free_slot", "parse_cpu_affinity", "pin_worker", "worker_cpu",
+]
 
 OFF = "off"
 AUTO = "auto"
@@ -92,17 +94,15 @@ def _allowed() -> set[int]:
     return os.sched_getaffinity(0)
 
 
-def check_cpu_affinity(setting: str, workers: int) -> None:
-    """Raise :class:`AffinityError` now (in the master) when some worker could not be pinned."""
+def check_cpu_affinity(setting: str) -> None:
+    """Raise :class:`AffinityError` now (in the master) when no worker could be pinned as
+    ``setting`` says (every listed CPU is checked whichever worker it goes to)."""
     if setting != OFF:
-        allowed = _allowed()
-        for index in range(workers):
-            worker_cpu(setting, index, allowed)
+        worker_cpu(setting, 0, _allowed())
 
 
-def pin_process(cpu: int) -> None:
+def _pin_process(cpu: int) -> None:
     """Every thread of this process, and any it starts later, onto ``cpu``."""
-    _allowed()
     tasks = Path("/proc/self/task")
     tids = [int(t.name) for t in tasks.iterdir()] if tasks.is_dir() else [0]
     for tid in tids:  # threads started later inherit the affinity of the thread starting them
@@ -118,6 +118,6 @@ def pin_worker(setting: str, index: int) -> int | None:
         return None
     cpu = worker_cpu(setting, index, _allowed())
     assert cpu is not None
-    pin_process(cpu)
+    _pin_process(cpu)
     _log.info("worker %d pinned to CPU %d (PROTOLYTE_CPU_AFFINITY)", index, cpu)
     return cpu

@@ -46,7 +46,7 @@ def _prepare_multiproc_dir() -> str:
 
 
 _prepare_multiproc_dir()
-check_cpu_affinity(_settings.cpu_affinity, workers)  # a setting this host cannot honour stops the master
+check_cpu_affinity(_settings.cpu_affinity)  # a setting this host cannot honour stops the master
 skip_unlogged_record_fields()  # in the master; the forked workers inherit it
 
 
